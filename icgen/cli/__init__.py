@@ -1,0 +1,63 @@
+"""The ``icgen`` command line: one subcommand per module ``icgen/cli/cmd_*.py``.
+
+Each command module defines ``NAME``, ``HELP``, ``add_arguments(parser)`` and
+``run(args) -> int``. Bad input of any kind (:class:`icgen.errors.InputError`)
+ends with one line on stderr and exit status 2; ``--debug`` shows the traceback.
+"""
+
+import argparse
+import importlib
+import pkgutil
+import sys
+
+from .. import __version__
+from ..errors import InputError
+
+__all__ = ["main", "build_parser"]
+
+
+def _command_modules():
+    pkg = sys.modules[__name__]
+    names = sorted(m.name for m in pkgutil.iter_modules(pkg.__path__) if m.name.startswith("cmd_"))
+    return [importlib.import_module(f"{__name__}.{n}") for n in names]
+
+
+def build_parser():
+    """The argument parser with every subcommand registered."""
+    parser = argparse.ArgumentParser(
+        prog="icgen",
+        description="Initial conditions, snapshot schedules, step tables and run checks "
+                    "for cosmological N-body simulations.")
+    parser.add_argument("--version", action="version", version=f"icgen {__version__}")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+    for mod in _command_modules():
+        p = sub.add_parser(mod.NAME, help=mod.HELP, description=mod.HELP)
+        mod.add_arguments(p)
+        p.add_argument("--debug", action="store_true", help="show the full traceback on errors")
+        p.set_defaults(_run=mod.run)
+    return parser
+
+
+def main(argv=None):
+    """Entry point of the ``icgen`` console script; returns the exit status."""
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    if not getattr(args, "_run", None):
+        parser.print_help()
+        return 2
+    try:
+        return int(args._run(args) or 0)
+    except InputError as exc:
+        if args.debug:
+            raise
+        print(f"icgen {args.command}: error: {exc}", file=sys.stderr)
+        return 2
+    except KeyboardInterrupt:
+        if args.debug:
+            raise
+        print(f"icgen {args.command}: interrupted; no output was left behind", file=sys.stderr)
+        return 130
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

@@ -1,0 +1,95 @@
+"""Writing outputs safely: atomic files and column tables (CSV or HDF5).
+
+Every output is written under a temporary name in the target directory and
+renamed onto its final name only when complete, so an interrupted or failed
+write never leaves a file that looks finished. An existing output is only
+replaced when the caller says ``overwrite=True``.
+"""
+
+import contextlib
+import os
+import tempfile
+from pathlib import Path
+
+import numpy as np
+
+from .errors import InputError
+
+__all__ = ["atomic_path", "check_output_path", "write_columns", "CSV_FORMAT"]
+
+#: printf format of floating values in CSV tables: 15 significant digits.
+CSV_FORMAT = "%.15g"
+
+
+def check_output_path(path, overwrite=False):
+    """Refuse an output path that exists (unless overwrite) or whose directory is missing."""
+    path = Path(path)
+    if path.exists() and not overwrite:
+        raise InputError(f"output {path} exists; pass --overwrite to replace it")
+    if path.is_dir():
+        raise InputError(f"output {path} is a directory")
+    parent = path.resolve().parent
+    if not parent.is_dir():
+        raise InputError(f"output directory {parent} does not exist")
+    if not os.access(parent, os.W_OK):
+        raise InputError(f"output directory {parent} is not writable")
+    return path
+
+
+@contextlib.contextmanager
+def atomic_path(path, overwrite=False):
+    """Yield a temporary path next to ``path``; rename it onto ``path`` on success.
+
+    On any exception (including KeyboardInterrupt) the temporary file is removed
+    and the exception propagates; ``path`` is untouched.
+    """
+    path = check_output_path(path, overwrite)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".partial", dir=path.resolve().parent)
+    os.close(fd)
+    try:
+        yield Path(tmp)
+        os.replace(tmp, path)
+    except BaseException:
+        with contextlib.suppress(FileNotFoundError):
+            os.remove(tmp)
+        raise
+
+
+def write_columns(path, columns, units=None, attrs=None, overwrite=False):
+    """Write named 1-D columns as CSV (header line of names) or HDF5 (one dataset each).
+
+    Parameters
+    ----------
+    path : str or Path
+        Output file; HDF5 if it ends in ``.h5`` or ``.hdf5``, CSV otherwise.
+    columns : dict[str, array_like]
+        Column name -> 1-D array, all the same length, in output order.
+    units : dict[str, str], optional
+        Column name -> unit string, stored as each dataset's ``units`` attribute (HDF5).
+    attrs : dict, optional
+        Root attributes, HDF5 only (a CSV table keeps exactly one header line).
+    overwrite : bool
+        Replace an existing file.
+    """
+    names = list(columns)
+    data = [np.asarray(columns[n]) for n in names]
+    n = {d.shape for d in data}
+    if len(n) != 1 or len(next(iter(n))) != 1:
+        raise ValueError(f"columns must be 1-D arrays of one length, got shapes {sorted(n)}")
+    path = Path(path)
+    with atomic_path(path, overwrite) as tmp:
+        if path.suffix.lower() in (".h5", ".hdf5"):
+            import h5py  # local: only the I/O layer needs it
+
+            with h5py.File(tmp, "w") as f:
+                for k, v in (attrs or {}).items():
+                    f.attrs[k] = v
+                for name, d in zip(names, data):
+                    ds = f.create_dataset(name, data=d)
+                    if units and name in units:
+                        ds.attrs["units"] = units[name]
+        else:
+            table = np.column_stack(data)
+            np.savetxt(tmp, table, delimiter=",", header=",".join(names), comments="",
+                       fmt=CSV_FORMAT)
+    return path
