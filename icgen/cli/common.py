@@ -5,7 +5,7 @@ from pathlib import Path
 
 from .. import parameters
 
-__all__ = ["add_params_arguments", "load_params", "default_params_text"]
+__all__ = ["add_params_arguments", "load_params", "default_params_text", "progress_bar", "warn_line"]
 
 #: The bundled default example (a parameter file shipped inside the package).
 DEFAULT_PARAMS = "default.toml"
@@ -31,3 +31,18 @@ def load_params(args):
         return parameters.load(args.params, args.overrides)
     return parameters.loads(default_params_text(), args.overrides, source="<bundled example>",
                             base_dir=Path.cwd())
+
+
+def progress_bar(total, desc, disable=False):
+    """A tqdm progress bar on stderr (a context manager)."""
+    from tqdm import tqdm
+
+    return tqdm(total=total, desc=desc, disable=disable, leave=False, unit="stage",
+                bar_format="{desc}: {percentage:3.0f}%|{bar}| {n_fmt}/{total_fmt} [{elapsed}]")
+
+
+def warn_line(message):
+    """Print one warning line on stderr."""
+    import sys
+
+    print(f"icgen: warning: {message}", file=sys.stderr)

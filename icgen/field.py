@@ -1,0 +1,170 @@
+"""Gaussian random fields on the grid, defined mode by mode in Fourier space.
+
+Conventions
+-----------
+* Grid of n^3 points in a periodic box of side L (Mpc/h); fundamental wavenumber
+  k_f = 2 pi / L (h/Mpc); mode (kx, ky, kz) in integers has k = k_f (kx, ky, kz).
+* Fourier series with the forward normalisation of ``scipy.fft`` (``norm="forward"``):
+  delta(x) = sum_k delta_k exp(i k.x), delta_k = (1/n^3) sum_x delta(x) exp(-i k.x),
+  so delta_k of a given wavevector does not depend on n, and
+  <|delta_k|^2> = P(k) / L^3 (P in (Mpc/h)^3).
+* Arrays hold the half-spectrum of ``rfftn``: shape (n, n, n//2 + 1), index i of
+  axis 0 and 1 meaning kx = i for i < n/2 and i - n otherwise, kz = l >= 0.
+* White noise: the complex amplitude of every integer wavevector comes from the
+  counter-based generator Philox4x32-10 (Salmon et al. 2011) with counter
+  (kx, ky, kz, 0) (32-bit two's complement) and key (seed mod 2^32, seed div 2^32):
+  it depends on (seed, kx, ky, kz) alone, never on n, threads or slabs. The
+  canonical member of each pair (k, -k) draws; the other is its conjugate
+  (exact Hermitian symmetry). The k = 0 mode is zero (the box has the mean
+  density) and so is every mode on a Nyquist plane (a component equal to -n/2,
+  or kz = n/2), where the pair k, -k falls onto one grid point.
+* Gaussian amplitude: (g1 + i g2)/sqrt(2) with unit normal g1, g2 (Box-Muller),
+  so <|W|^2> = 1; fixed amplitude (Angulo & Pontzen 2016, MNRAS 462, L1): |W| = 1
+  with the same phases; paired: every phase shifted by pi (W -> -W).
+
+The work is organised by slabs of constant first index, so a slab of the field
+can be produced on its own (``ix0``, ``ix1``), as a distributed run will need.
+"""
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from . import _kernels
+from .errors import ParameterError
+
+__all__ = ["white_noise", "amplitude_table", "DensityModes", "linear_density_modes",
+           "mode_wavenumbers", "check_grid"]
+
+
+def check_grid(n, box_size):
+    """Validate a grid: n even, 2 <= n <= 16384; 0 < box_size."""
+    if isinstance(n, bool) or not isinstance(n, (int, np.integer)) or n < 2 or n > 16384 or n % 2:
+        raise ParameterError(f"particles_per_side = {n!r}: need an even integer in [2, 16384]")
+    if not (np.isfinite(box_size) and box_size > 0):
+        raise ParameterError(f"box_size = {box_size!r}: need a positive length in Mpc/h")
+
+
+def _key(seed):
+    if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or not 0 <= seed < 2**64:
+        raise ParameterError(f"seed = {seed!r}: need an integer in [0, 2^64)")
+    seed = int(seed)
+    return np.uint64(seed & 0xFFFFFFFF), np.uint64(seed >> 32)
+
+
+def white_noise(seed, n, fixed_amplitude=False, paired=False, ix0=0, ix1=None):
+    """Unit white noise W(k) on the half-spectrum grid (or one slab of it).
+
+    Parameters
+    ----------
+    seed : int
+        Key of the mode generator, 0 <= seed < 2^64.
+    n : int
+        Grid points per side (even).
+    fixed_amplitude : bool
+        |W| = 1 exactly (phases random).
+    paired : bool
+        Shift every phase by pi.
+    ix0, ix1 : int
+        Slab of the first axis to produce, 0 <= ix0 < ix1 <= n (default: all).
+
+    Returns
+    -------
+    ndarray, complex128, shape (ix1 - ix0, n, n//2 + 1)
+        <|W|^2> = 1 except on the zeroed modes (module notes).
+    """
+    check_grid(n, 1.0)
+    ix1 = n if ix1 is None else ix1
+    if not (0 <= ix0 < ix1 <= n):
+        raise ParameterError(f"slab [{ix0}, {ix1}) is not inside [0, {n})")
+    k0, k1 = _key(seed)
+    out = np.empty((ix1 - ix0, n, n // 2 + 1), dtype=np.complex128)
+    _kernels._white_noise_slab(k0, k1, n, ix0, bool(fixed_amplitude), -1.0 if paired else 1.0, out)
+    return out
+
+
+def mode_wavenumbers(n, box_size):
+    """|k| (h/Mpc) of every distinct integer m = kx^2 + ky^2 + kz^2 on the grid, m = 0..3(n/2)^2."""
+    m2 = np.arange(3 * (n // 2) ** 2 + 1, dtype=np.float64)
+    return 2.0 * np.pi / box_size * np.sqrt(m2)
+
+
+def amplitude_table(power, n, box_size):
+    """sqrt(P(k)/L^3) for every distinct squared integer wavevector length on the grid.
+
+    Parameters
+    ----------
+    power : callable
+        P(k) in (Mpc/h)^3 for k in h/Mpc (vectorised), at the redshift wanted.
+    n : int
+    box_size : float
+        L in Mpc/h.
+
+    Returns
+    -------
+    ndarray, float64, shape (3 (n/2)^2 + 1,)
+        Entry m is the rms mode amplitude at |k| = k_f sqrt(m); entry 0 is 0.
+    """
+    k = mode_wavenumbers(n, box_size)
+    amp = np.zeros_like(k)
+    pk = np.asarray(power(k[1:]), dtype=np.float64)
+    if pk.shape != k[1:].shape or np.any(~np.isfinite(pk)) or np.any(pk < 0):
+        raise ParameterError("the power spectrum returned negative or non-finite values on the grid's k range "
+                             f"[{k[1]:.4g}, {k[-1]:.4g}] h/Mpc")
+    amp[1:] = np.sqrt(pk / box_size**3)
+    return amp
+
+
+@dataclass(frozen=True, eq=False)
+class DensityModes:
+    """Fourier modes of the linear density contrast on the grid.
+
+    Attributes
+    ----------
+    delta_k : ndarray, complex128, shape (n, n, n//2 + 1)
+        delta_k with <|delta_k|^2> = P(k)/L^3 (module conventions), read-only.
+    n : int
+        Grid points per side.
+    box_size : float
+        L in Mpc/h.
+    """
+
+    delta_k: np.ndarray
+    n: int
+    box_size: float
+
+    def __post_init__(self):
+        self.delta_k.flags.writeable = False
+
+    @property
+    def k_fundamental(self):
+        """2 pi / L in h/Mpc."""
+        return 2.0 * np.pi / self.box_size
+
+    @property
+    def k_nyquist(self):
+        """Particle Nyquist wavenumber pi n / L in h/Mpc."""
+        return np.pi * self.n / self.box_size
+
+
+def linear_density_modes(power, seed, n, box_size, fixed_amplitude=False, paired=False):
+    """Gaussian linear density modes delta_k = W(k) sqrt(P(k)/L^3).
+
+    Parameters
+    ----------
+    power : callable
+        P(k) in (Mpc/h)^3, k in h/Mpc, at the redshift the modes are wanted for.
+    seed, n, fixed_amplitude, paired
+        As in :func:`white_noise`.
+    box_size : float
+        L in Mpc/h.
+
+    Returns
+    -------
+    DensityModes
+    """
+    check_grid(n, box_size)
+    amp = amplitude_table(power, n, box_size)
+    w = white_noise(seed, n, fixed_amplitude, paired)
+    _kernels._scale_modes(w, n, 0, amp)
+    return DensityModes(delta_k=w, n=n, box_size=float(box_size))

@@ -1,0 +1,158 @@
+"""Lagrangian perturbation theory displacements (Zel'dovich and 2LPT) on the grid.
+
+Conventions
+-----------
+Eulerian comoving position of the particle with Lagrangian coordinate q:
+
+    x(q, a) = q + D1(a) psi_1(q) + D2(a) psi_2(q),
+
+with D1, D2 the growth factors of :mod:`icgen.background` (D1(1) = 1,
+D2 -> -(3/7) D1^2 in Einstein-de Sitter) and the fields evaluated from the linear
+density delta(q) extrapolated to a = 1:
+
+* first order (Zel'dovich 1970):  div psi_1 = -delta, psi_1 = -grad phi_1 with
+  lap phi_1 = delta; in Fourier space psi_1(k) = i k delta_k / k^2.
+* second order (Bouchet et al. 1995, A&A 296, 575; Scoccimarro 1998, MNRAS 299,
+  1097, eqs. 5-6 and appendix; Crocce, Pueblas & Scoccimarro 2006, MNRAS 373,
+  369, eqs. 4-5):  div psi_2 = S with
+  S = sum_{i>j} [phi_1,ii phi_1,jj - (phi_1,ij)^2], psi_2 = grad phi_2,
+  lap phi_2 = S; in Fourier space phi_1,ij(k) = k_i k_j delta_k / k^2 and
+  psi_2(k) = -i k S_k / k^2.
+  This is the form of Crocce, Pueblas & Scoccimarro (2006, eq. 4),
+  x = q - D1 grad phi_1 + D2 grad phi_2 with D2 ~ -(3/7) D1^2.
+
+The sign follows from the Lagrangian equation of motion at second order:
+J div_x(x'' + ...) with J = 1 + div psi + mu_2(psi) + ...; requiring the D2
+equation D2'' + (2 + dlnH/dlna) D2' - 1.5 Omega_m D2 = -1.5 Omega_m D1^2 gives
+div psi_2 = mu_2(psi_1) = S (derivation in the Notes of :func:`displacements`).
+
+Fourier transforms use ``scipy.fft`` with ``norm="forward"`` (see :mod:`icgen.field`).
+"""
+
+from dataclasses import dataclass
+
+import numpy as np
+import scipy.fft as sfft
+
+from . import _kernels
+from .errors import ParameterError
+from .field import DensityModes
+
+__all__ = ["Displacements", "displacements"]
+
+
+@dataclass(frozen=True, eq=False)
+class Displacements:
+    """Displacement fields at D1 = 1 on the Lagrangian grid.
+
+    Attributes
+    ----------
+    psi_1 : ndarray, float64, shape (3, n, n, n)
+        First-order displacement in Mpc/h (comoving), read-only.
+    psi_2 : ndarray, float64, shape (3, n, n, n) or None
+        Second-order displacement field in Mpc/h, multiplied by D2 in positions.
+    box_size : float
+        L in Mpc/h.
+    """
+
+    psi_1: np.ndarray
+    psi_2: np.ndarray | None
+    box_size: float
+
+    def __post_init__(self):
+        self.psi_1.flags.writeable = False
+        if self.psi_2 is not None:
+            self.psi_2.flags.writeable = False
+
+    @property
+    def n(self):
+        """Grid points per side."""
+        return self.psi_1.shape[1]
+
+    @property
+    def order(self):
+        """LPT order: 1 or 2."""
+        return 1 if self.psi_2 is None else 2
+
+
+def _inverse(field_k, n, workers):
+    return sfft.irfftn(field_k, s=(n, n, n), norm="forward", workers=workers, overwrite_x=True)
+
+
+def displacements(modes, order=2, workers=None, progress=None):
+    """First- and (optionally) second-order displacement fields from density modes.
+
+    Parameters
+    ----------
+    modes : DensityModes
+        Linear density modes extrapolated to a = 1 (D1 = 1).
+    order : {1, 2}
+        LPT order.
+    workers : int, optional
+        Threads for scipy.fft (results are identical for any value).
+    progress : callable, optional
+        Called with a short stage name after each transform (for progress bars).
+
+    Returns
+    -------
+    Displacements
+
+    Notes
+    -----
+    Second order: the equation of motion div_x A = -(3/2) Omega_m (aH)^2 delta with
+    A = d^2x/dtau^2 + aH dx/dtau and delta = 1/J - 1 reads
+    J div_x A = (3/2) Omega_m (aH)^2 (J - 1), J = det(dx/dq) = 1 + div psi + mu_2(psi);
+    collecting terms of order D1^2 gives
+    expanding J div_x A = div_q A + (div psi)(div A) - psi_i,j A_j,i to second order and
+    collecting terms of order D1^2 gives
+    (T D2 - 1.5 Omega_m (aH)^2 D2) div psi_2 = -1.5 Omega_m (aH)^2 D1^2 mu_2(psi_1),
+    T = d^2/dtau^2 + aH d/dtau, so div psi_2 = mu_2(psi_1) = S when D2 solves the
+    second-order growth equation of :mod:`icgen.background` (Bouchet et al. 1995,
+    sec. 3; derivation written out here).
+
+    References
+    ----------
+    .. [1] Zel'dovich (1970), A&A 5, 84.
+    .. [2] Scoccimarro (1998), MNRAS 299, 1097.
+    .. [3] Crocce, Pueblas & Scoccimarro (2006), MNRAS 373, 369.
+    """
+    if not isinstance(modes, DensityModes):
+        raise TypeError(f"modes must be DensityModes, got {type(modes).__name__}")
+    if order not in (1, 2):
+        raise ParameterError(f"lpt_order = {order!r}: allowed values are 1 and 2")
+    n, kf = modes.n, modes.k_fundamental
+    tick = progress or (lambda stage: None)
+    dk = modes.delta_k
+    buf = np.empty_like(dk)
+    psi_1 = np.empty((3, n, n, n), dtype=np.float64)
+    for d in range(3):
+        _kernels._derivative_modes(dk, n, 0, kf, d, -1, buf)
+        psi_1[d] = _inverse(buf, n, workers)
+        tick(f"psi_1[{d}]")
+    if order == 1:
+        return Displacements(psi_1=psi_1, psi_2=None, box_size=modes.box_size)
+
+    # phi_1,ij = IFFT[k_i k_j delta_k / k^2]; S = sum_{i>j} phi_ii phi_jj - phi_ij^2.
+    diag = []
+    for d in range(3):
+        _kernels._derivative_modes(dk, n, 0, kf, d, d, buf)
+        diag.append(_inverse(buf, n, workers))
+        tick(f"phi_{d}{d}")
+    source = np.empty((n, n, n), dtype=np.float64)
+    _kernels._second_order_source_diag(diag[0], diag[1], diag[2], source)
+    del diag
+    for d1, d2 in ((0, 1), (0, 2), (1, 2)):
+        _kernels._derivative_modes(dk, n, 0, kf, d1, d2, buf)
+        _kernels._subtract_square(source, _inverse(buf, n, workers))
+        tick(f"phi_{d1}{d2}")
+    source_k = sfft.rfftn(source, norm="forward", workers=workers, overwrite_x=True)
+    del source
+    tick("source")
+    psi_2 = np.empty((3, n, n, n), dtype=np.float64)
+    for d in range(3):
+        # psi_2(k) = -i k_d S_k / k^2: the kernel gives +i k_d/k^2, so negate.
+        _kernels._derivative_modes(source_k, n, 0, kf, d, -1, buf)
+        np.negative(buf, out=buf)
+        psi_2[d] = _inverse(buf, n, workers)
+        tick(f"psi_2[{d}]")
+    return Displacements(psi_1=psi_1, psi_2=psi_2, box_size=modes.box_size)

@@ -1,0 +1,97 @@
+"""The chain of stages, each in one short function that is easy to read.
+
+cosmology -> background -> spectrum -> field -> lpt -> particles.
+Reading files and writing outputs stays with the callers (cli, io_*).
+"""
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from . import field, lpt, particles, start
+from .errors import ParameterError
+
+__all__ = ["GridSetup", "grid_setup", "start_scale_factor", "initial_conditions", "N_PROGRESS_STEPS"]
+
+
+@dataclass(frozen=True)
+class GridSetup:
+    """What the grid stages need from the parameters (validated)."""
+
+    box_size: float
+    n: int
+    lpt_order: int
+    seed: int
+    fixed_amplitude: bool
+    paired: bool
+    dtype: np.dtype
+    write_ids: bool
+
+
+def grid_setup(params):
+    """Read [box], [start], [phases] and [output] into a GridSetup (checks included)."""
+    n = params.get("box", "particles_per_side")
+    box = params.get("box", "size")
+    field.check_grid(n, box)
+    return GridSetup(box_size=box, n=n, lpt_order=params.get("start", "lpt_order"),
+                     seed=params.get("phases", "seed"),
+                     fixed_amplitude=params.get("phases", "fixed_amplitude"),
+                     paired=params.get("phases", "paired"),
+                     dtype=np.dtype(params.get("output", "precision")),
+                     write_ids=params.get("output", "write_ids"))
+
+
+def start_scale_factor(params, pk, bg, setup):
+    """Starting scale factor: [start] redshift, or the recommendation when it is "auto".
+
+    Returns
+    -------
+    a_start : float
+    advice : StartAdvice or None
+    """
+    z = params.get("start", "redshift")
+    advice = None
+    if z == "auto":
+        limits = {k: params.get("start", k) for k in start.DEFAULT_LIMITS}
+        advice = start.advise(lambda k: pk.P(k, 0.0), bg, setup.box_size, setup.n, limits=limits)
+        z = advice.z_start(setup.lpt_order)
+    a = 1.0 / (1.0 + z)
+    if not bg.a_min <= a <= min(1.0, bg.a_top):
+        raise ParameterError(f"[start] redshift = {z:g} is outside the background table "
+                             f"[{1 / min(1.0, bg.a_top) - 1:g}, {1 / bg.a_min - 1:.4g}]")
+    return a, advice
+
+
+#: Number of progress ticks of :func:`initial_conditions` for order 1 and 2.
+N_PROGRESS_STEPS = {1: 5, 2: 15}
+
+
+def initial_conditions(pk, bg, setup, a_start, workers=None, progress=None):
+    """Particles at a_start from the linear spectrum: modes -> displacements -> particles.
+
+    Parameters
+    ----------
+    pk : object with ``P(k, z)``
+        Linear power spectrum (k in h/Mpc, P in (Mpc/h)^3), scaled in z with bg's D1.
+    bg : BackgroundTable
+    setup : GridSetup
+    a_start : float
+    workers : int, optional
+        FFT threads (the output does not depend on it).
+    progress : callable, optional
+        Called with a stage name at each of N_PROGRESS_STEPS[order] steps.
+
+    Returns
+    -------
+    ParticleSet
+    """
+    tick = progress or (lambda stage: None)
+    modes = field.linear_density_modes(lambda k: pk.P(k, 0.0), setup.seed, setup.n, setup.box_size,
+                                       setup.fixed_amplitude, setup.paired)
+    tick("modes")
+    disp = lpt.displacements(modes, setup.lpt_order, workers=workers, progress=tick)
+    del modes
+    growth = particles.StartGrowth.from_background(bg, a_start)
+    parts = particles.at(growth, disp, bg.cosmo.omega_m, setup.dtype, setup.write_ids)
+    tick("particles")
+    return parts
