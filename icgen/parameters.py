@@ -95,6 +95,12 @@ SCHEMA = {
     "start": {
         "redshift": Key("float_or_auto", "auto", 0.0, 1e4, doc='start redshift or "auto"'),
         "lpt_order": Key("int", 2, 1, 2, doc="1 (Zel'dovich) or 2 (2LPT)"),
+        "sigma_limit_1lpt": Key("float", 0.1, 1e-3, 10.0,
+                                doc="auto start: largest rms grid density contrast, first order"),
+        "sigma_limit_2lpt": Key("float", 0.25, 1e-3, 10.0,
+                                doc="auto start: largest rms grid density contrast, second order"),
+        "displacement_limit": Key("float", 0.25, 1e-3, 10.0,
+                                  doc="auto start: largest rms displacement per component / spacing"),
     },
     "phases": {
         "seed": Key("int", 12345, 0, 2**63 - 1, doc="random seed of the mode generator"),
