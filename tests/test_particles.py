@@ -1,0 +1,117 @@
+"""Particles at the start: positions, velocities, ids, mass; determinism across threads."""
+
+import hashlib
+import os
+import subprocess
+import sys
+import textwrap
+
+import numpy as np
+import pytest
+
+from icgen import background, field, lpt, particles
+from icgen.cosmology import Cosmology
+from icgen.units import RHO_CRIT_100
+
+COSMO = Cosmology(h=0.7, omega_m=0.3, omega_b=0.045, n_s=0.96, sigma_8=0.8)
+
+
+@pytest.fixture(scope="module")
+def bg():
+    return background.solve(COSMO)
+
+
+def _disp(n, box, order, seed=3):
+    m = field.linear_density_modes(lambda k: 400.0 * k**-1.5, seed, n, box)
+    return lpt.displacements(m, order=order)
+
+
+def _unwrap(pos, n, box):
+    q = np.arange(n) * box / n
+    p = pos.astype(np.float64).reshape(n, n, n, 3)
+    d = np.stack([p[..., 0] - q[:, None, None], p[..., 1] - q[None, :, None], p[..., 2] - q[None, None, :]], -1)
+    return d - box * np.rint(d / box)
+
+
+def test_first_order_velocity_is_a_h_f1_times_displacement(bg):
+    # Zel'dovich: x - q = D1 psi_1 and v = a dx/dt = a H f1 D1 psi_1, so v = a H f1 (x - q)
+    # exactly (H in km/s per Mpc/h = 100 E(a)); float64 round-off only.
+    n, box, a = 16, 80.0, 1 / 51.0
+    disp = _disp(n, box, 1)
+    g = particles.StartGrowth.from_background(bg, a)
+    parts = particles.at(g, disp, COSMO.omega_m, np.float64)
+    d = _unwrap(parts.position, n, box).reshape(-1, 3)
+    a_h = a * 100.0 * bg.E(a)
+    np.testing.assert_allclose(parts.velocity, a_h * bg.f1(a) * d, rtol=0,
+                               atol=1e-12 * np.abs(parts.velocity).max())
+
+
+def test_second_order_positions_and_velocities(bg):
+    # x = q + D1 psi_1 + D2 psi_2 and v = a H (f1 D1 psi_1 + f2 D2 psi_2) (Crocce, Pueblas &
+    # Scoccimarro 2006, eqs. 4 and 7, with H per Mpc/h).
+    n, box, a = 16, 80.0, 1 / 31.0
+    disp = _disp(n, box, 2)
+    g = particles.StartGrowth.from_background(bg, a)
+    parts = particles.at(g, disp, COSMO.omega_m, np.float64)
+    d = _unwrap(parts.position, n, box)
+    want = np.moveaxis(g.D1 * disp.psi_1 + g.D2 * disp.psi_2, 0, -1)
+    np.testing.assert_allclose(d, want, rtol=0, atol=1e-12 * box)
+    a_h = a * 100.0 * bg.E(a)
+    v_want = a_h * (g.f1 * g.D1 * disp.psi_1 + g.f2 * g.D2 * disp.psi_2)
+    np.testing.assert_allclose(parts.velocity.reshape(n, n, n, 3), np.moveaxis(v_want, 0, -1),
+                               rtol=0, atol=1e-12 * np.abs(v_want).max())
+
+
+def test_positions_wrap_into_the_box_mean_displacement_zero_and_ids(bg):
+    n, box = 16, 10.0  # small box: large displacements, many particles wrap
+    disp = _disp(n, box, 2)
+    g = particles.StartGrowth.from_background(bg, 0.5)
+    for dtype in (np.float32, np.float64):
+        parts = particles.at(g, disp, COSMO.omega_m, dtype)
+        assert parts.position.dtype == dtype and parts.velocity.dtype == dtype
+        assert parts.position.min() >= 0 and parts.position.max() < box
+    # The k = 0 mode is zero, so the mean displacement vanishes (to float64 round-off);
+    # measured on a box large enough that no displacement exceeds L/2 (unambiguous unwrap).
+    big = _disp(n, 200.0, 2)
+    d = _unwrap(particles.at(g, big, COSMO.omega_m, np.float64).position, n, 200.0)
+    assert np.abs(d).max() < 100.0
+    assert np.all(np.abs(d.mean(axis=(0, 1, 2))) < 1e-12 * 200.0)
+    ids = particles.at(g, disp, COSMO.omega_m).id
+    i, j, k = 3, 5, 7
+    assert ids.dtype == np.uint64 and ids[(i * n + j) * n + k] == (i * n + j) * n + k
+
+
+def test_particle_mass():
+    # m = Omega_m rho_crit L^3 / N^3; rho_crit,0 = 2.77536627e11 h^2 Msun/Mpc^3
+    # (astropy.cosmology critical_density0 for H0 = 100 km/s/Mpc, in Msun/Mpc^3).
+    assert RHO_CRIT_100 == pytest.approx(2.775366272458307e11, rel=1e-9)
+    m = particles.particle_mass(0.3, 100.0, 64)
+    assert m == pytest.approx(0.3 * 2.775366272458307e11 * 100.0**3 / 64**3, rel=1e-9)
+
+
+_THREAD_SCRIPT = textwrap.dedent("""
+    import hashlib, sys
+    import numpy as np
+    from icgen import background, field, lpt, particles
+    from icgen.cosmology import Cosmology
+    bg = background.solve(Cosmology(h=0.7, omega_m=0.3, omega_b=0.045))
+    m = field.linear_density_modes(lambda k: 400.0 * k**-1.5, 17, 32, 64.0)
+    d = lpt.displacements(m, order=2, workers=int(sys.argv[1]))
+    p = particles.at(particles.StartGrowth.from_background(bg, 0.03), d, 0.3, np.float32)
+    h = hashlib.sha256()
+    for arr in (p.position, p.velocity, p.id):
+        h.update(np.ascontiguousarray(arr).tobytes())
+    print(h.hexdigest())
+""")
+
+
+def test_bit_identical_on_one_and_two_threads():
+    # The determinism promise: same seed -> identical bytes with NUMBA_NUM_THREADS = 1 and 2
+    # (and FFT workers 1 and 2).
+    digests = []
+    for threads in (1, 2):
+        env = dict(os.environ, NUMBA_NUM_THREADS=str(threads), OMP_NUM_THREADS=str(threads))
+        out = subprocess.run([sys.executable, "-c", _THREAD_SCRIPT, str(threads)], env=env,
+                             capture_output=True, text=True, check=True)
+        digests.append(out.stdout.strip())
+    assert digests[0] == digests[1] and len(digests[0]) == 64
