@@ -87,6 +87,8 @@ SCHEMA = {
         "redshift": Key("float", 0.0, 0.0, 1e4, doc="redshift of the table"),
         "k_unit": Key("choice", "h/Mpc", choices=("h/Mpc", "1/Mpc"), doc="unit of the table's k"),
         "index": Key("float", None, -3.0, 4.0, doc="power-law index n of P = A k^n", nullable=True),
+        "extrapolate": Key("bool", True, doc="power-law extrapolation beyond the table (with a "
+                           "warning); false: refuse a table not covering the box's k range"),
     },
     "box": {
         "size": Key("float", REQUIRED, 1e-3, 1e6, doc="comoving box side in Mpc/h"),
@@ -111,6 +113,32 @@ SCHEMA = {
         "precision": Key("choice", "float32", choices=("float32", "float64"),
                          doc="floating type of positions and velocities"),
         "write_ids": Key("bool", True, doc="write /particles/id"),
+    },
+    "snapshots": {
+        "a_begin": Key("float", None, 1e-8, 100.0, nullable=True,
+                       doc="start of the run; default 1/(1 + [start] redshift)"),
+        "a_end": Key("float", 1.0, 1e-8, 100.0, doc="last output; the schedule ends exactly here"),
+        "spacing": Key("choice", "log_a", choices=("a", "log_a", "power", "time", "growth"),
+                       doc="variable the regular outputs are even in: a, ln a, a^power, t, D1"),
+        "power": Key("float", 0.5, 0.01, 4.0, doc="exponent p of spacing = 'power' (a^p)"),
+        "count": Key("int", 0, 0, 10**6, doc="evenly spaced outputs, the last at a_end (0: none)"),
+        "interval": Key("float", None, 1e-12, 1e4, nullable=True,
+                        doc="or: spacing between outputs in the spacing variable (Gyr for time)"),
+        "extra_redshifts": Key("float_list", (), -0.99, 1e4, doc="further outputs, as redshifts"),
+        "include_begin": Key("bool", False, doc="also write an output at a_begin"),
+        "merge_tolerance": Key("float", 1e-6, 0.0, 0.1, doc="outputs closer than this in ln a merge"),
+    },
+    "steps": {
+        "spacing": Key("choice", "log_a", choices=("a", "log_a", "power", "time", "growth"),
+                       doc="variable the steps are even in: a, ln a, a^power, t, D1"),
+        "power": Key("float", 0.5, 0.01, 4.0, doc="exponent p of spacing = 'power' (a^p)"),
+        "count": Key("int", 100, 1, 10**7, doc="nominal number of steps, a_begin to a_end"),
+        "max_interval": Key("float", None, 1e-12, 1e4, nullable=True,
+                            doc="or: widest step in the spacing variable (Gyr for time)"),
+        "target_growth_error": Key("float", None, 1e-8, 0.5, nullable=True,
+                                   doc="or: fewest steps keeping |psi/D1 - 1| at a_end below this"),
+        "leapfrog": Key("choice", "kdk", choices=("kdk", "dkd"),
+                        doc="leapfrog form whose growth error is measured"),
     },
 }
 
