@@ -21,6 +21,12 @@ __all__ = ["atomic_path", "check_output_path", "write_columns", "CSV_FORMAT"]
 CSV_FORMAT = "%.15g"
 
 
+def _umask():
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
+
+
 def check_output_path(path, overwrite=False):
     """Refuse an output path that exists (unless overwrite) or whose directory is missing."""
     path = Path(path)
@@ -48,6 +54,7 @@ def atomic_path(path, overwrite=False):
     os.close(fd)
     try:
         yield Path(tmp)
+        os.chmod(tmp, 0o666 & ~_umask())  # mkstemp creates 0600; give the usual permissions
         os.replace(tmp, path)
     except BaseException:
         with contextlib.suppress(FileNotFoundError):
