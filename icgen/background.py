@@ -160,7 +160,8 @@ def _d2_series_coeffs(n_terms=10):
 def _find_turnaround(cosmo):
     """First a > 1 where E^2 vanishes, or None if none up to _A_SEARCH_MAX."""
     x = np.linspace(0.0, np.log(_A_SEARCH_MAX), 20001)
-    e2 = E2(np.exp(x), cosmo)
+    with np.errstate(over="ignore"):  # w0-wa dark energy may overflow far in the future: E^2 = inf > 0
+        e2 = E2(np.exp(x), cosmo)
     neg = np.nonzero(e2 <= 0.0)[0]
     if neg.size == 0:
         return None
@@ -516,6 +517,8 @@ def solve(cosmo, a_min=1e-8, a_max=100.0, n_table=_N_TABLE):
         raise ModelError(f"background integration failed: {sol.message}")
 
     x = np.linspace(max(np.log(a_min), x0), x1, n_table)
+    if fate == FATE_RECOLLAPSE:
+        x = _refine_near_turnaround(x, np.log(a_turn))
     if 0.0 not in x:  # make a = 1 a node, so D1(1) = 1 to round-off
         x = np.sort(np.append(x[np.abs(x) > 1e-9], 0.0))
     y = sol.sol(x)
@@ -535,6 +538,28 @@ def solve(cosmo, a_min=1e-8, a_max=100.0, n_table=_N_TABLE):
         cosmo=cosmo, ln_a=x, t_h0=y[0], eta_h0=y[1], d1=d1, d1p=d1p, d1pp=d1pp,
         d2=d2, d2p=d2p, d2pp=d2pp, fate=fate, a_turn=a_turn, t_turn_h0=t_turn,
         t_crunch_h0=t_crunch, collapse_t_h0=ct, collapse_a=ca, collapse_adot=cadot)
+
+
+#: Step of the ln a nodes just before a turnaround, as a fraction of the distance to it.
+_TURN_STEP = 0.02
+
+
+def _refine_near_turnaround(x, x_turn):
+    """Replace the uniform ln a nodes near a turnaround by nodes geometric in the distance to it.
+
+    Close to the turnaround t, eta, D1 and D2 vary like sqrt(x_turn - x) (d ln a/dt -> 0), so
+    on a uniform grid of step h the cubic Hermite error grows like (h / (x_turn - x))^4 (with
+    6000 nodes it reached 2e-6 in t and 5e-6 in f1 near a_top for omega_m = 2, omega_k = -1).
+    Steps of _TURN_STEP times the distance bring that to 4e-10 in t and 5e-9 in f1 (against the
+    cycloid and Heath solutions, tests/test_background.py) for about 400 more nodes.
+    """
+    h = x[1] - x[0]
+    d_from = min(h / _TURN_STEP, x_turn - x[0])
+    d_top = x_turn - x[-1]
+    if d_from <= d_top:
+        return x
+    n = int(np.ceil(np.log(d_from / d_top) / np.log1p(_TURN_STEP))) + 1
+    return np.concatenate([x[x_turn - x > d_from], x_turn - np.geomspace(d_from, d_top, n)])
 
 
 def _through_turnaround(cosmo, a_start, t_start, n=2000):
