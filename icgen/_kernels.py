@@ -60,8 +60,12 @@ def _mode_uniforms(kx, ky, kz, key0, key1):
 
 
 @njit(cache=True, parallel=True)
-def _white_noise_slab(key0, key1, n, ix0, fixed, sign, out):
-    """Fill out[i, j, l] with the white-noise amplitude of FFT mode (ix0 + i, j, l).
+def _white_noise_slab(key0, key1, n, ix0, fixed, sign, amp_of_m2, out):
+    """Fill out[i, j, l] with amp_of_m2[m] times the white noise of FFT mode (ix0 + i, j, l).
+
+    m = kx^2 + ky^2 + kz^2 (the scaling by the spectrum is fused into the draw; pass
+    ones for pure white noise). Values are computed in float64 and rounded once on
+    store, so a complex64 ``out`` holds the rounded complex128 result.
 
     The amplitude of integer wavevector (kx, ky, kz) depends only on the key and
     the wavevector. Modes are paired with their negatives so the field is exactly
@@ -94,22 +98,10 @@ def _white_noise_slab(key0, key1, n, ix0, fixed, sign, out):
                     amp = 1.0
                 else:
                     amp = np.sqrt(-np.log(u1))  # |g1 + i g2|/sqrt(2) = sqrt(-2 ln u1)/sqrt(2)
-                re = sign * amp * np.cos(theta)
-                im = sign * amp * np.sin(theta)
+                amp *= sign * amp_of_m2[kx * kx + ky * ky + kz * kz]
+                re = amp * np.cos(theta)
+                im = amp * np.sin(theta)
                 out[i, j, l] = complex(re, im if canonical else -im)
-
-
-@njit(cache=True, parallel=True)
-def _scale_modes(field, n, ix0, amp_of_m2):
-    """Multiply mode (ix0 + i, j, l) by amp_of_m2[kx^2 + ky^2 + kz^2], in place."""
-    half = n // 2
-    for i in prange(field.shape[0]):
-        ix = ix0 + i
-        kx = ix if ix < half else ix - n
-        for j in range(field.shape[1]):
-            ky = j if j < half else j - n
-            for l in range(field.shape[2]):
-                field[i, j, l] *= amp_of_m2[kx * kx + ky * ky + l * l]
 
 
 @njit(cache=True, parallel=True)
@@ -162,40 +154,54 @@ def _subtract_square(out, p):
 
 
 @njit(cache=True, parallel=True)
-def _place_particles(psi, d1, psi2, d2, box_size, spacing, out):
-    """out[p, d] = (q_d + d1 psi[d] + d2 psi2[d]) mod L for particle p = (i n + j) n + k.
+def _particle_slab(psi, psi2, i0, i1, c_pos1, c_pos2, c_vel1, c_vel2, box_size, pos_out, vel_out):
+    """Positions and velocities of the particles with first grid index i0 <= i < i1.
 
-    psi, psi2 have shape (3, n, n, n); q = (i, j, k) * spacing. psi2 may be a
-    zero-size array when there is no second order.
+    Row p - (i0 n^2) of the outputs is particle p = (i n + j) n + k:
+      pos = (q + c_pos1 psi[d] + c_pos2 psi2[d]) mod L,  q = (i, j, k) L/n,
+      vel = c_vel1 psi[d] + c_vel2 psi2[d],
+    evaluated in float64 and rounded once on store. psi, psi2: (3, n, n, n); psi2 may
+    be a zero-size array (first order).
+    """
+    n = psi.shape[1]
+    spacing = box_size / n
+    second = psi2.size > 0
+    for i in prange(i0, i1):
+        for j in range(n):
+            for k in range(n):
+                p = ((i - i0) * n + j) * n + k
+                for d in range(3):
+                    s1 = np.float64(psi[d, i, j, k])
+                    s2 = np.float64(psi2[d, i, j, k]) if second else 0.0
+                    q = (i if d == 0 else (j if d == 1 else k)) * spacing
+                    x = (q + (c_pos1 * s1 + c_pos2 * s2)) % box_size
+                    xr = pos_out.dtype.type(x)
+                    if xr >= box_size:  # rounding up to L (or a tiny negative) wraps to 0
+                        xr = pos_out.dtype.type(0.0)
+                    pos_out[p, d] = xr
+                    vel_out[p, d] = c_vel1 * s1 + c_vel2 * s2
+
+
+@njit(cache=True)
+def _displacement_moments(psi, psi2, i0, i1, c1, c2):
+    """Sum and sum of squares (float64) and max |.| of c1 psi + c2 psi2 over slab [i0, i1).
+
+    Serial loop in a fixed order: deterministic on any thread count.
     """
     n = psi.shape[1]
     second = psi2.size > 0
-    for i in prange(n):
-        for j in range(n):
-            for k in range(n):
-                p = (i * n + j) * n + k
-                for d in range(3):
-                    q = (i if d == 0 else (j if d == 1 else k)) * spacing
-                    x = q + d1 * psi[d, i, j, k]
+    s = 0.0
+    s2 = 0.0
+    mx = 0.0
+    for d in range(3):
+        for i in range(i0, i1):
+            for j in range(n):
+                for k in range(n):
+                    v = c1 * np.float64(psi[d, i, j, k])
                     if second:
-                        x += d2 * psi2[d, i, j, k]
-                    x = x % box_size
-                    if x >= box_size:  # round-off of a tiny negative value
-                        x -= box_size
-                    out[p, d] = x
-
-
-@njit(cache=True, parallel=True)
-def _particle_velocities(psi, c1, psi2, c2, out):
-    """out[p, d] = c1 psi[d] + c2 psi2[d] at particle p = (i n + j) n + k."""
-    n = psi.shape[1]
-    second = psi2.size > 0
-    for i in prange(n):
-        for j in range(n):
-            for k in range(n):
-                p = (i * n + j) * n + k
-                for d in range(3):
-                    v = c1 * psi[d, i, j, k]
-                    if second:
-                        v += c2 * psi2[d, i, j, k]
-                    out[p, d] = v
+                        v += c2 * np.float64(psi2[d, i, j, k])
+                    s += v
+                    s2 += v * v
+                    if abs(v) > mx:
+                        mx = abs(v)
+    return s, s2, mx

@@ -52,7 +52,17 @@ def _key(seed):
     return np.uint64(seed & 0xFFFFFFFF), np.uint64(seed >> 32)
 
 
-def white_noise(seed, n, fixed_amplitude=False, paired=False, ix0=0, ix1=None):
+def _complex_dtype(dtype):
+    dtype = np.dtype(dtype)
+    if dtype == np.float32:
+        return np.dtype(np.complex64)
+    if dtype == np.float64:
+        return np.dtype(np.complex128)
+    raise ParameterError(f"precision = {dtype.name!r}: allowed float32 and float64")
+
+
+def white_noise(seed, n, fixed_amplitude=False, paired=False, ix0=0, ix1=None, dtype=np.float64,
+                amp_of_m2=None):
     """Unit white noise W(k) on the half-spectrum grid (or one slab of it).
 
     Parameters
@@ -67,10 +77,16 @@ def white_noise(seed, n, fixed_amplitude=False, paired=False, ix0=0, ix1=None):
         Shift every phase by pi.
     ix0, ix1 : int
         Slab of the first axis to produce, 0 <= ix0 < ix1 <= n (default: all).
+    dtype : {numpy.float64, numpy.float32}
+        Real precision: complex128 or complex64 output. Amplitudes are computed in
+        float64 and rounded once, so the complex64 field is the rounded complex128 one.
+    amp_of_m2 : ndarray, optional
+        Multiply mode m = kx^2 + ky^2 + kz^2 by amp_of_m2[m] before rounding (see
+        :func:`amplitude_table`); default 1 (pure white noise).
 
     Returns
     -------
-    ndarray, complex128, shape (ix1 - ix0, n, n//2 + 1)
+    ndarray, complex128 or complex64, shape (ix1 - ix0, n, n//2 + 1)
         <|W|^2> = 1 except on the zeroed modes (module notes).
     """
     check_grid(n, 1.0)
@@ -78,8 +94,9 @@ def white_noise(seed, n, fixed_amplitude=False, paired=False, ix0=0, ix1=None):
     if not (0 <= ix0 < ix1 <= n):
         raise ParameterError(f"slab [{ix0}, {ix1}) is not inside [0, {n})")
     k0, k1 = _key(seed)
-    out = np.empty((ix1 - ix0, n, n // 2 + 1), dtype=np.complex128)
-    _kernels._white_noise_slab(k0, k1, n, ix0, bool(fixed_amplitude), -1.0 if paired else 1.0, out)
+    out = np.empty((ix1 - ix0, n, n // 2 + 1), dtype=_complex_dtype(dtype))
+    amp = np.ones(3 * (n // 2) ** 2 + 1) if amp_of_m2 is None else amp_of_m2
+    _kernels._white_noise_slab(k0, k1, n, ix0, bool(fixed_amplitude), -1.0 if paired else 1.0, amp, out)
     return out
 
 
@@ -121,7 +138,7 @@ class DensityModes:
 
     Attributes
     ----------
-    delta_k : ndarray, complex128, shape (n, n, n//2 + 1)
+    delta_k : ndarray, complex128 or complex64, shape (n, n, n//2 + 1)
         delta_k with <|delta_k|^2> = P(k)/L^3 (module conventions), read-only.
     n : int
         Grid points per side.
@@ -147,7 +164,8 @@ class DensityModes:
         return np.pi * self.n / self.box_size
 
 
-def linear_density_modes(power, seed, n, box_size, fixed_amplitude=False, paired=False):
+def linear_density_modes(power, seed, n, box_size, fixed_amplitude=False, paired=False,
+                         dtype=np.float64):
     """Gaussian linear density modes delta_k = W(k) sqrt(P(k)/L^3).
 
     Parameters
@@ -158,6 +176,8 @@ def linear_density_modes(power, seed, n, box_size, fixed_amplitude=False, paired
         As in :func:`white_noise`.
     box_size : float
         L in Mpc/h.
+    dtype : {numpy.float64, numpy.float32}
+        Real precision of the grid work (complex128 or complex64 modes).
 
     Returns
     -------
@@ -165,6 +185,5 @@ def linear_density_modes(power, seed, n, box_size, fixed_amplitude=False, paired
     """
     check_grid(n, box_size)
     amp = amplitude_table(power, n, box_size)
-    w = white_noise(seed, n, fixed_amplitude, paired)
-    _kernels._scale_modes(w, n, 0, amp)
+    w = white_noise(seed, n, fixed_amplitude, paired, dtype=dtype, amp_of_m2=amp)
     return DensityModes(delta_k=w, n=n, box_size=float(box_size))

@@ -22,7 +22,7 @@ import numpy as np
 from . import __version__
 from .io_output import atomic_path
 
-__all__ = ["FORMAT", "FORMAT_VERSION", "write_particles", "read_particles"]
+__all__ = ["FORMAT", "FORMAT_VERSION", "write_particles", "write_particles_streamed", "read_particles"]
 
 FORMAT = "icgen.particles"
 FORMAT_VERSION = 1
@@ -31,9 +31,30 @@ UNITS = {"position": "Mpc/h (comoving)", "velocity": "km/s (peculiar, a dx/dt)",
          "box_size": "Mpc/h", "H": "km/s/Mpc"}
 
 
+def _root_attrs(growth, box_size, n, mass, lpt_order, parameters_toml, cosmology, seed,
+                fixed_amplitude, paired, extra_attrs):
+    g = growth
+    attrs = {
+        "format": FORMAT, "format_version": FORMAT_VERSION, "created_by": f"icgen {__version__}",
+        "parameters": parameters_toml, "cosmology": json.dumps(cosmology.as_dict()),
+        "box_size": box_size, "scale_factor": g.a, "redshift": 1.0 / g.a - 1.0,
+        "grid_per_side": n, "n_particles": n**3, "particle_mass": mass,
+        "lpt_order": lpt_order, "seed": np.uint64(seed), "fixed_amplitude": bool(fixed_amplitude),
+        "paired": bool(paired), "D1": g.D1, "f1": g.f1, "D2": g.D2, "f2": g.f2, "H": g.H,
+        "units": json.dumps(UNITS),
+    }
+    attrs.update(extra_attrs or {})
+    return attrs
+
+
+def _write_attrs(f, attrs):
+    for k, v in attrs.items():
+        f.attrs[k] = v
+
+
 def write_particles(path, parts, parameters_toml, cosmology, seed, fixed_amplitude=False,
                     paired=False, overwrite=False, extra_attrs=None):
-    """Write a ParticleSet to ``path`` atomically (temporary name, then rename).
+    """Write an in-memory ParticleSet to ``path`` atomically (temporary name, then rename).
 
     Parameters
     ----------
@@ -49,22 +70,12 @@ def write_particles(path, parts, parameters_toml, cosmology, seed, fixed_amplitu
     extra_attrs : dict, optional
         More root attributes.
     """
-    g = parts.growth
     n = round(parts.n_particles ** (1 / 3))
-    attrs = {
-        "format": FORMAT, "format_version": FORMAT_VERSION, "created_by": f"icgen {__version__}",
-        "parameters": parameters_toml, "cosmology": json.dumps(cosmology.as_dict()),
-        "box_size": parts.box_size, "scale_factor": g.a, "redshift": 1.0 / g.a - 1.0,
-        "grid_per_side": n, "n_particles": parts.n_particles, "particle_mass": parts.mass,
-        "lpt_order": parts.lpt_order, "seed": np.uint64(seed), "fixed_amplitude": bool(fixed_amplitude),
-        "paired": bool(paired), "D1": g.D1, "f1": g.f1, "D2": g.D2, "f2": g.f2, "H": g.H,
-        "units": json.dumps(UNITS),
-    }
-    attrs.update(extra_attrs or {})
+    attrs = _root_attrs(parts.growth, parts.box_size, n, parts.mass, parts.lpt_order, parameters_toml,
+                        cosmology, seed, fixed_amplitude, paired, extra_attrs)
     with atomic_path(path, overwrite) as tmp:
         with h5py.File(tmp, "w") as f:
-            for k, v in attrs.items():
-                f.attrs[k] = v
+            _write_attrs(f, attrs)
             grp = f.create_group("particles")
             for name in ("position", "velocity", "id"):
                 arr = getattr(parts, name)
@@ -72,6 +83,40 @@ def write_particles(path, parts, parameters_toml, cosmology, seed, fixed_amplitu
                     continue
                 ds = grp.create_dataset(name, data=arr)
                 ds.attrs["units"] = UNITS[name]
+    return path
+
+
+def write_particles_streamed(path, growth, disp, mass, dtype, write_ids, parameters_toml, cosmology,
+                             seed, fixed_amplitude=False, paired=False, overwrite=False,
+                             extra_attrs=None, progress=None):
+    """Compute and write the particles slab by slab (peak memory: the fields plus one slab).
+
+    Same file as :func:`write_particles` for the same inputs (both use
+    :func:`icgen.particles.slabs`' kernel). ``progress`` is called with the fraction done.
+    """
+    from . import particles  # the numerical core; imported here to keep this module light
+
+    n = disp.n
+    attrs = _root_attrs(growth, disp.box_size, n, mass, disp.order, parameters_toml, cosmology, seed,
+                        fixed_amplitude, paired, extra_attrs)
+    with atomic_path(path, overwrite) as tmp:
+        with h5py.File(tmp, "w") as f:
+            _write_attrs(f, attrs)
+            grp = f.create_group("particles")
+            pos = grp.create_dataset("position", shape=(n**3, 3), dtype=dtype)
+            vel = grp.create_dataset("velocity", shape=(n**3, 3), dtype=dtype)
+            ids = grp.create_dataset("id", shape=(n**3,), dtype=np.uint64) if write_ids else None
+            for ds, name in ((pos, "position"), (vel, "velocity"), (ids, "id")):
+                if ds is not None:
+                    ds.attrs["units"] = UNITS[name]
+            for row0, p, v in particles.slabs(growth, disp, dtype):
+                rows = p.shape[0]
+                pos[row0:row0 + rows] = p
+                vel[row0:row0 + rows] = v
+                if ids is not None:
+                    ids[row0:row0 + rows] = np.arange(row0, row0 + rows, dtype=np.uint64)
+                if progress:
+                    progress((row0 + rows) / n**3)
     return path
 
 

@@ -47,9 +47,9 @@ class Displacements:
 
     Attributes
     ----------
-    psi_1 : ndarray, float64, shape (3, n, n, n)
+    psi_1 : ndarray, float32 or float64, shape (3, n, n, n)
         First-order displacement in Mpc/h (comoving), read-only.
-    psi_2 : ndarray, float64, shape (3, n, n, n) or None
+    psi_2 : ndarray, same dtype and shape, or None
         Second-order displacement field in Mpc/h, multiplied by D2 in positions.
     box_size : float
         L in Mpc/h.
@@ -74,24 +74,33 @@ class Displacements:
         """LPT order: 1 or 2."""
         return 1 if self.psi_2 is None else 2
 
+    @property
+    def dtype(self):
+        """Floating type of the fields."""
+        return self.psi_1.dtype
+
 
 def _inverse(field_k, n, workers):
     return sfft.irfftn(field_k, s=(n, n, n), norm="forward", workers=workers, overwrite_x=True)
 
 
-def displacements(modes, order=2, workers=None, progress=None):
+def displacements(modes, order=2, workers=None, progress=None, overwrite_modes=False):
     """First- and (optionally) second-order displacement fields from density modes.
 
     Parameters
     ----------
     modes : DensityModes
-        Linear density modes extrapolated to a = 1 (D1 = 1).
+        Linear density modes extrapolated to a = 1 (D1 = 1). complex64 modes give
+        float32 fields, complex128 modes float64 fields.
     order : {1, 2}
         LPT order.
     workers : int, optional
         Threads for scipy.fft (results are identical for any value).
     progress : callable, optional
         Called with a short stage name after each transform (for progress bars).
+    overwrite_modes : bool
+        Reuse ``modes.delta_k`` as scratch for the last transform (saves one complex
+        field of memory); the modes are garbage afterwards. Like scipy's ``overwrite_x``.
 
     Returns
     -------
@@ -99,10 +108,13 @@ def displacements(modes, order=2, workers=None, progress=None):
 
     Notes
     -----
+    Memory: the work is ordered so that at most the modes, one complex scratch
+    field, the finished displacement components and one transform output are alive:
+    about 20 bytes per particle in float32 for first order and 32 for second order.
+
     Second order: the equation of motion div_x A = -(3/2) Omega_m (aH)^2 delta with
     A = d^2x/dtau^2 + aH dx/dtau and delta = 1/J - 1 reads
     J div_x A = (3/2) Omega_m (aH)^2 (J - 1), J = det(dx/dq) = 1 + div psi + mu_2(psi);
-    collecting terms of order D1^2 gives
     expanding J div_x A = div_q A + (div psi)(div A) - psi_i,j A_j,i to second order and
     collecting terms of order D1^2 gives
     (T D2 - 1.5 Omega_m (aH)^2 D2) div psi_2 = -1.5 Omega_m (aH)^2 D1^2 mu_2(psi_1),
@@ -123,36 +135,45 @@ def displacements(modes, order=2, workers=None, progress=None):
     n, kf = modes.n, modes.k_fundamental
     tick = progress or (lambda stage: None)
     dk = modes.delta_k
-    buf = np.empty_like(dk)
-    psi_1 = np.empty((3, n, n, n), dtype=np.float64)
-    for d in range(3):
-        _kernels._derivative_modes(dk, n, 0, kf, d, -1, buf)
-        psi_1[d] = _inverse(buf, n, workers)
-        tick(f"psi_1[{d}]")
-    if order == 1:
-        return Displacements(psi_1=psi_1, psi_2=None, box_size=modes.box_size)
+    rdt = np.float32 if dk.dtype == np.complex64 else np.float64
+    scratch = np.empty_like(dk)
 
-    # phi_1,ij = IFFT[k_i k_j delta_k / k^2]; S = sum_{i>j} phi_ii phi_jj - phi_ij^2.
-    diag = []
+    psi_2 = None
+    if order == 2:
+        # phi_1,ij = IFFT[k_i k_j delta_k / k^2]; S = sum_{i>j} phi_ii phi_jj - phi_ij^2.
+        diag = []
+        for d in range(3):
+            _kernels._derivative_modes(dk, n, 0, kf, d, d, scratch)
+            diag.append(_inverse(scratch, n, workers))
+            tick(f"phi_{d}{d}")
+        source = diag[0]
+        _kernels._second_order_source_diag(diag[0], diag[1], diag[2], source)  # elementwise, in place
+        del diag
+        for d1, d2 in ((0, 1), (0, 2), (1, 2)):
+            _kernels._derivative_modes(dk, n, 0, kf, d1, d2, scratch)
+            _kernels._subtract_square(source, _inverse(scratch, n, workers))
+            tick(f"phi_{d1}{d2}")
+        source_k = sfft.rfftn(source, norm="forward", workers=workers, overwrite_x=True)
+        del source
+        tick("source")
+        psi_2 = np.empty((3, n, n, n), dtype=rdt)
+        for d in range(3):
+            # psi_2(k) = -i k_d S_k / k^2: the kernel gives +i k_d/k^2, so negate.
+            _kernels._derivative_modes(source_k, n, 0, kf, d, -1, scratch)
+            np.negative(scratch, out=scratch)
+            psi_2[d] = _inverse(scratch, n, workers)
+            tick(f"psi_2[{d}]")
+        del source_k
+
+    psi_1 = np.empty((3, n, n, n), dtype=rdt)
     for d in range(3):
-        _kernels._derivative_modes(dk, n, 0, kf, d, d, buf)
-        diag.append(_inverse(buf, n, workers))
-        tick(f"phi_{d}{d}")
-    source = np.empty((n, n, n), dtype=np.float64)
-    _kernels._second_order_source_diag(diag[0], diag[1], diag[2], source)
-    del diag
-    for d1, d2 in ((0, 1), (0, 2), (1, 2)):
-        _kernels._derivative_modes(dk, n, 0, kf, d1, d2, buf)
-        _kernels._subtract_square(source, _inverse(buf, n, workers))
-        tick(f"phi_{d1}{d2}")
-    source_k = sfft.rfftn(source, norm="forward", workers=workers, overwrite_x=True)
-    del source
-    tick("source")
-    psi_2 = np.empty((3, n, n, n), dtype=np.float64)
-    for d in range(3):
-        # psi_2(k) = -i k_d S_k / k^2: the kernel gives +i k_d/k^2, so negate.
-        _kernels._derivative_modes(source_k, n, 0, kf, d, -1, buf)
-        np.negative(buf, out=buf)
-        psi_2[d] = _inverse(buf, n, workers)
-        tick(f"psi_2[{d}]")
+        target = scratch
+        if d == 2 and overwrite_modes:
+            del scratch
+            dk.flags.writeable = True  # the caller handed the modes over as scratch
+            target = dk
+        _kernels._derivative_modes(dk, n, 0, kf, d, -1, target)
+        psi_1[d] = _inverse(target, n, workers)
+        del target
+        tick(f"psi_1[{d}]")
     return Displacements(psi_1=psi_1, psi_2=psi_2, box_size=modes.box_size)

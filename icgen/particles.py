@@ -20,7 +20,7 @@ from .errors import ParameterError
 from .lpt import Displacements
 from .units import RHO_CRIT_100
 
-__all__ = ["ParticleSet", "at", "particle_mass", "StartGrowth"]
+__all__ = ["ParticleSet", "at", "slabs", "displacement_stats", "particle_mass", "StartGrowth"]
 
 
 def particle_mass(omega_m, box_size, n):
@@ -87,8 +87,74 @@ class ParticleSet:
         return self.position.shape[0]
 
 
+def _coefficients(growth, disp):
+    """(c_pos1, c_pos2, c_vel1, c_vel2): x = q + c_pos1 psi_1 + c_pos2 psi_2, v = c_vel1 psi_1 + c_vel2 psi_2."""
+    a_h = growth.a * growth.H / growth.h  # a H in km/s per (Mpc/h)
+    d2 = growth.D2 if disp.psi_2 is not None else 0.0
+    return growth.D1, d2, a_h * growth.f1 * growth.D1, a_h * growth.f2 * d2
+
+
+def _psi2_or_empty(disp):
+    return disp.psi_2 if disp.psi_2 is not None else np.zeros((0, 0, 0, 0), dtype=disp.dtype)
+
+
+def _check_dtype(dtype):
+    dtype = np.dtype(dtype)
+    if dtype not in (np.float32, np.float64):
+        raise ParameterError(f"precision = {dtype.name!r}: allowed float32 and float64")
+    return dtype
+
+
+def slabs(growth, disp, dtype=np.float32, planes_per_slab=None):
+    """Positions and velocities slab by slab (a generator), for streaming output.
+
+    Parameters
+    ----------
+    growth : StartGrowth
+    disp : Displacements
+    dtype : {numpy.float32, numpy.float64}
+    planes_per_slab : int, optional
+        Grid planes (first index) per slab; default: about 2^21 particles per slab.
+
+    Yields
+    ------
+    row0 : int
+        First particle row of the slab (particle (i n + j) n + k is row (i n + j) n + k).
+    position, velocity : ndarray, shape (rows, 3)
+        As in :func:`at`; the buffers are reused between slabs (copy them to keep them).
+    """
+    if not isinstance(disp, Displacements):
+        raise TypeError(f"disp must be Displacements, got {type(disp).__name__}")
+    dtype = _check_dtype(dtype)
+    n = disp.n
+    per = planes_per_slab or max(1, (1 << 21) // (n * n))
+    c = _coefficients(growth, disp)
+    psi2 = _psi2_or_empty(disp)
+    pos = np.empty((per * n * n, 3), dtype=dtype)
+    vel = np.empty((per * n * n, 3), dtype=dtype)
+    for i0 in range(0, n, per):
+        i1 = min(n, i0 + per)
+        rows = (i1 - i0) * n * n
+        _kernels._particle_slab(disp.psi_1, psi2, i0, i1, *c, disp.box_size, pos[:rows], vel[:rows])
+        yield i0 * n * n, pos[:rows], vel[:rows]
+
+
+def displacement_stats(growth, disp, quantity="displacement"):
+    """Mean, rms and max |.| over all particles and components of the displacement (Mpc/h)
+    c1 psi_1 + c2 psi_2, or of the velocity (km/s) with ``quantity="velocity"``.
+
+    Computed from the fields in float64 in a fixed order (deterministic).
+    """
+    c_pos1, c_pos2, c_vel1, c_vel2 = _coefficients(growth, disp)
+    c1, c2 = (c_pos1, c_pos2) if quantity == "displacement" else (c_vel1, c_vel2)
+    n = disp.n
+    s, s2, mx = _kernels._displacement_moments(disp.psi_1, _psi2_or_empty(disp), 0, n, c1, c2)
+    count = 3 * n**3
+    return {"mean": s / count, "rms": float(np.sqrt(s2 / count)), "max": float(mx)}
+
+
 def at(growth, disp, omega_m, dtype=np.float32, write_ids=True):
-    """Place the particles at the start.
+    """Place the particles at the start (all in memory; see :func:`slabs` for streaming).
 
     Parameters
     ----------
@@ -99,9 +165,9 @@ def at(growth, disp, omega_m, dtype=np.float32, write_ids=True):
     omega_m : float
         Matter density today (for the particle mass).
     dtype : {numpy.float32, numpy.float64}
-        Floating type of positions and velocities. Positions are computed in float64
-        and rounded once; float32 keeps about 7 significant digits, i.e. a resolution
-        of ~6e-8 L (check it against your softening).
+        Floating type of positions and velocities. Values are computed in float64
+        from the fields and rounded once; float32 keeps about 7 significant digits,
+        a resolution of ~6e-8 L (check it against your softening).
     write_ids : bool
         Produce the id array.
 
@@ -111,24 +177,12 @@ def at(growth, disp, omega_m, dtype=np.float32, write_ids=True):
     """
     if not isinstance(disp, Displacements):
         raise TypeError(f"disp must be Displacements, got {type(disp).__name__}")
-    dtype = np.dtype(dtype)
-    if dtype not in (np.float32, np.float64):
-        raise ParameterError(f"precision = {dtype.name!r}: allowed float32 and float64")
+    dtype = _check_dtype(dtype)
     n, box = disp.n, disp.box_size
-    empty = np.zeros((0, 0, 0, 0))
-    psi2 = disp.psi_2 if disp.psi_2 is not None else empty
-    d2 = growth.D2 if disp.psi_2 is not None else 0.0
-    pos = np.empty((n**3, 3), dtype=np.float64)
-    _kernels._place_particles(disp.psi_1, growth.D1, psi2, d2, box, box / n, pos)
-    vel = np.empty((n**3, 3), dtype=np.float64)
-    # a H in km/s per (Mpc/h): H [km/s/Mpc] / h.
-    a_h = growth.a * growth.H / growth.h
-    _kernels._particle_velocities(disp.psi_1, a_h * growth.f1 * growth.D1, psi2,
-                                  a_h * growth.f2 * d2, vel)
-    if dtype != np.float64:
-        pos = pos.astype(dtype)
-        pos[pos >= dtype.type(box)] = 0.0  # rounding up to L wraps to 0
-        vel = vel.astype(dtype)
+    pos = np.empty((n**3, 3), dtype=dtype)
+    vel = np.empty((n**3, 3), dtype=dtype)
+    _kernels._particle_slab(disp.psi_1, _psi2_or_empty(disp), 0, n, *_coefficients(growth, disp), box,
+                            pos, vel)
     ids = np.arange(n**3, dtype=np.uint64) if write_ids else None
     return ParticleSet(position=pos, velocity=vel, id=ids, mass=particle_mass(omega_m, box, n),
                        box_size=box, growth=growth, lpt_order=disp.order)

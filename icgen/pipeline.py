@@ -11,7 +11,8 @@ import numpy as np
 from . import field, lpt, particles, start
 from .errors import ParameterError
 
-__all__ = ["GridSetup", "grid_setup", "start_scale_factor", "initial_conditions", "N_PROGRESS_STEPS"]
+__all__ = ["GridSetup", "grid_setup", "start_scale_factor", "displacement_fields", "initial_conditions",
+           "N_PROGRESS_STEPS"]
 
 
 @dataclass(frozen=True)
@@ -62,12 +63,12 @@ def start_scale_factor(params, pk, bg, setup):
     return a, advice
 
 
-#: Number of progress ticks of :func:`initial_conditions` for order 1 and 2.
-N_PROGRESS_STEPS = {1: 5, 2: 15}
+#: Number of progress ticks of :func:`displacement_fields` for order 1 and 2.
+N_PROGRESS_STEPS = {1: 4, 2: 14}
 
 
-def initial_conditions(pk, bg, setup, a_start, workers=None, progress=None):
-    """Particles at a_start from the linear spectrum: modes -> displacements -> particles.
+def displacement_fields(pk, bg, setup, workers=None, progress=None):
+    """Linear modes -> LPT displacement fields at D1 = 1, in the setup's precision.
 
     Parameters
     ----------
@@ -75,7 +76,6 @@ def initial_conditions(pk, bg, setup, a_start, workers=None, progress=None):
         Linear power spectrum (k in h/Mpc, P in (Mpc/h)^3), scaled in z with bg's D1.
     bg : BackgroundTable
     setup : GridSetup
-    a_start : float
     workers : int, optional
         FFT threads (the output does not depend on it).
     progress : callable, optional
@@ -83,15 +83,23 @@ def initial_conditions(pk, bg, setup, a_start, workers=None, progress=None):
 
     Returns
     -------
-    ParticleSet
+    Displacements
     """
     tick = progress or (lambda stage: None)
     modes = field.linear_density_modes(lambda k: pk.P(k, 0.0), setup.seed, setup.n, setup.box_size,
-                                       setup.fixed_amplitude, setup.paired)
+                                       setup.fixed_amplitude, setup.paired, dtype=setup.dtype)
     tick("modes")
-    disp = lpt.displacements(modes, setup.lpt_order, workers=workers, progress=tick)
-    del modes
+    # The modes are used by nothing else: let the last transform reuse their memory.
+    return lpt.displacements(modes, setup.lpt_order, workers=workers, progress=tick, overwrite_modes=True)
+
+
+def initial_conditions(pk, bg, setup, a_start, workers=None, progress=None):
+    """Particles at a_start, all in memory (the CLI streams them to disk instead).
+
+    Returns
+    -------
+    ParticleSet
+    """
+    disp = displacement_fields(pk, bg, setup, workers, progress)
     growth = particles.StartGrowth.from_background(bg, a_start)
-    parts = particles.at(growth, disp, bg.cosmo.omega_m, setup.dtype, setup.write_ids)
-    tick("particles")
-    return parts
+    return particles.at(growth, disp, bg.cosmo.omega_m, setup.dtype, setup.write_ids)

@@ -5,9 +5,7 @@ import os
 import time
 import warnings
 
-import numpy as np
-
-from .. import background, io_hdf5, io_output, pipeline
+from .. import background, io_hdf5, io_output, particles, pipeline
 from .common import add_params_arguments, load_params, progress_bar, warn_line
 
 NAME = "ics"
@@ -40,54 +38,58 @@ def prepare(params):
 
 
 def generate(params, out, overwrite=False, workers=None, quiet=False):
-    """Run the initial-condition pipeline and write ``out``; returns (parts, seconds)."""
+    """Run the initial-condition pipeline and stream the particles into ``out``.
+
+    Returns
+    -------
+    dict
+        Summary figures (see :func:`summary`).
+    """
     io_output.check_output_path(out, overwrite)
     t0 = time.perf_counter()
     bg, pk, setup, a_start, advice = prepare(params)
+    cosmo = params.cosmology
     steps = pipeline.N_PROGRESS_STEPS[setup.lpt_order] + 1
     with progress_bar(steps, f"ics {setup.n}^3", disable=quiet) as bar:
-        parts = pipeline.initial_conditions(pk, bg, setup, a_start, workers=workers,
-                                            progress=lambda stage: bar.update(1))
+        disp = pipeline.displacement_fields(pk, bg, setup, workers, progress=lambda stage: bar.update(1))
+        growth = particles.StartGrowth.from_background(bg, a_start)
+        mass = particles.particle_mass(cosmo.omega_m, setup.box_size, setup.n)
         extra = {}
         if advice is not None:
             extra["start_rule"] = json.dumps({"rule": "auto (common practice, see icgen.start)",
                                               **advice.limits, "z_start_1lpt": advice.z_start_1lpt,
                                               "z_start_2lpt": advice.z_start_2lpt})
-        io_hdf5.write_particles(out, parts, params.to_toml(), params.cosmology, setup.seed,
-                                setup.fixed_amplitude, setup.paired, overwrite, extra)
+        io_hdf5.write_particles_streamed(out, growth, disp, mass, setup.dtype, setup.write_ids,
+                                         params.to_toml(), cosmo, setup.seed, setup.fixed_amplitude,
+                                         setup.paired, overwrite, extra)
         bar.update(1)
-    return parts, time.perf_counter() - t0
+    info = {"out": str(out), "n": setup.n, "box_size": setup.box_size, "order": setup.lpt_order,
+            "mass": mass, "growth": growth, "disp": particles.displacement_stats(growth, disp),
+            "vel": particles.displacement_stats(growth, disp, "velocity"),
+            "seconds": time.perf_counter() - t0}
+    return info
 
 
-def summary(parts, out, seconds):
-    """Short human summary of a particle set."""
-    g = parts.growth
-    n = round(parts.n_particles ** (1 / 3))
-    spacing = parts.box_size / n
-    disp = np.asarray(parts.position, dtype=np.float64).reshape(n, n, n, 3)
-    q = np.arange(n) * spacing
-    d = np.stack([disp[..., 0] - q[:, None, None], disp[..., 1] - q[None, :, None],
-                  disp[..., 2] - q[None, None, :]], axis=-1)
-    d -= parts.box_size * np.rint(d / parts.box_size)  # undo the periodic wrap
-    rms = float(np.sqrt(np.mean(d**2)))
-    dmax = float(np.max(np.abs(d)))
-    lines = [
-        f"wrote {out}",
-        f"  particles      {n}^3 = {parts.n_particles:,} in a {parts.box_size:g} Mpc/h box "
-        f"(spacing {spacing:.4g} Mpc/h), order {parts.lpt_order}LPT",
-        f"  particle mass  {parts.mass:.6e} Msun/h",
+def summary(info):
+    """Short human summary of a generated file."""
+    g, n, box = info["growth"], info["n"], info["box_size"]
+    spacing = box / n
+    d, v = info["disp"], info["vel"]
+    return "\n".join([
+        f"wrote {info['out']}",
+        f"  particles      {n}^3 = {n**3:,} in a {box:g} Mpc/h box (spacing {spacing:.4g} Mpc/h), "
+        f"{info['order']}LPT",
+        f"  particle mass  {info['mass']:.6e} Msun/h",
         f"  start          z = {1 / g.a - 1:.4g} (a = {g.a:.6g}); D1 = {g.D1:.6g}, f1 = {g.f1:.6f}, "
         f"D2 = {g.D2:.6g}, f2 = {g.f2:.6f}",
-        f"  displacement   rms per component {rms:.4g} Mpc/h = {rms / spacing:.3f} spacing; "
-        f"max {dmax:.4g} Mpc/h = {dmax / spacing:.3f} spacing",
-        f"  velocity       rms per component {float(np.sqrt(np.mean(np.square(parts.velocity, dtype=np.float64)))):.4g} km/s",
-        f"  time           {seconds:.2f} s",
-    ]
-    return "\n".join(lines)
+        f"  displacement   rms per component {d['rms']:.4g} Mpc/h = {d['rms'] / spacing:.3f} spacing; "
+        f"max {d['max']:.4g} Mpc/h = {d['max'] / spacing:.3f} spacing; mean {d['mean']:.2e} Mpc/h",
+        f"  velocity       rms per component {v['rms']:.4g} km/s, max {v['max']:.4g} km/s",
+        f"  time           {info['seconds']:.2f} s",
+    ])
 
 
 def run(args):
     params = load_params(args)
-    parts, seconds = generate(params, args.out, args.overwrite, args.workers, args.quiet)
-    print(summary(parts, args.out, seconds))
+    print(summary(generate(params, args.out, args.overwrite, args.workers, args.quiet)))
     return 0
