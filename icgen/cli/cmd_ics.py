@@ -63,7 +63,7 @@ def generate(params, out, overwrite=False, workers=None, quiet=False):
                                          params.to_toml(), cosmo, setup.seed, setup.fixed_amplitude,
                                          setup.paired, overwrite, extra)
         bar.update(1)
-    info = {"out": str(out), "n": setup.n, "box_size": setup.box_size, "order": setup.lpt_order,
+    info = {"out": str(out), "bg": bg, "pk": pk, "n": setup.n, "box_size": setup.box_size, "order": setup.lpt_order,
             "mass": mass, "growth": growth, "disp": particles.displacement_stats(growth, disp),
             "vel": particles.displacement_stats(growth, disp, "velocity"),
             "seconds": time.perf_counter() - t0}
