@@ -15,8 +15,7 @@ _W0 = np.uint64(0x9E3779B9)
 _W1 = np.uint64(0xBB67AE85)
 _MASK32 = np.uint64(0xFFFFFFFF)
 _SH32 = np.uint64(32)
-_TWO_M53 = 2.0**-53
-_TWO_PI = 2.0 * np.pi
+_TWO_M52 = 2.0**-52
 
 
 @njit(cache=True, inline="always")
@@ -47,16 +46,29 @@ def _philox_block(counter, key):
 
 
 @njit(cache=True, inline="always")
-def _mode_uniforms(kx, ky, kz, key0, key1):
-    """Two uniforms in (0, 1] (53 bits each) for the integer wavevector (kx, ky, kz)."""
-    c0 = np.uint64(kx) & _MASK32  # two's complement of negative indices
+def _mode_disk_point(kx, ky, kz, key0, key1):
+    """A point (u, v) uniform in the unit disk (0 < u^2 + v^2 < 1) for the wavevector (kx, ky, kz).
+
+    Each attempt is one Philox4x32-10 block with counter (kx, ky, kz, attempt)
+    (32-bit two's complement) giving two 53-bit uniforms in [-1, 1); attempts outside
+    the disk are rejected (Marsaglia & Bray 1964). The result depends on the key and
+    the wavevector only.
+    """
+    c0 = np.uint64(kx) & _MASK32
     c1 = np.uint64(ky) & _MASK32
     c2 = np.uint64(kz) & _MASK32
-    r0, r1, r2, r3 = _philox4x32_10(c0, c1, c2, np.uint64(0), key0, key1)
-    # 27 + 26 bits -> a 53-bit integer, as numpy's random_standard_uniform does from two words.
-    u1 = ((r0 >> np.uint64(5)) * np.uint64(67108864) + (r1 >> np.uint64(6)) + np.uint64(1)) * _TWO_M53
-    u2 = ((r2 >> np.uint64(5)) * np.uint64(67108864) + (r3 >> np.uint64(6))) * _TWO_M53
-    return u1, u2
+    attempt = np.uint64(0)
+    while True:
+        r0, r1, r2, r3 = _philox4x32_10(c0, c1, c2, attempt, key0, key1)
+        # 27 + 26 bits -> a 53-bit integer (via int64: exact and fast to convert).
+        ia = np.int64(r0 >> np.uint64(5)) * 67108864 + np.int64(r1 >> np.uint64(6))
+        ib = np.int64(r2 >> np.uint64(5)) * 67108864 + np.int64(r3 >> np.uint64(6))
+        u = ia * _TWO_M52 - 1.0
+        v = ib * _TWO_M52 - 1.0
+        s = u * u + v * v
+        if 0.0 < s < 1.0:
+            return u, v, s
+        attempt += np.uint64(1)
 
 
 @njit(cache=True, parallel=True)
@@ -64,17 +76,19 @@ def _white_noise_slab(key0, key1, n, ix0, fixed, sign, amp_of_m2, out):
     """Fill out[i, j, l] with amp_of_m2[m] times the white noise of FFT mode (ix0 + i, j, l).
 
     m = kx^2 + ky^2 + kz^2 (the scaling by the spectrum is fused into the draw; pass
-    ones for pure white noise). Values are computed in float64 and rounded once on
-    store, so a complex64 ``out`` holds the rounded complex128 result.
+    ones for pure white noise). The amplitude of integer wavevector (kx, ky, kz)
+    depends only on the key and the wavevector. Modes are paired with their
+    negatives so the field is exactly Hermitian: the canonical member of each pair
+    (kz > 0, or kz = 0 and ky > 0, or kz = ky = 0 and kx > 0) draws, the other takes
+    the complex conjugate. The k = 0 mode and every mode on a Nyquist plane (any
+    index equal to -n/2, or kz = n/2) are zero.
 
-    The amplitude of integer wavevector (kx, ky, kz) depends only on the key and
-    the wavevector. Modes are paired with their negatives so the field is exactly
-    Hermitian: the canonical member of each pair (kz > 0, or kz = 0 and ky > 0, or
-    kz = ky = 0 and kx > 0) draws, the other takes the complex conjugate. The k = 0
-    mode and every mode on a Nyquist plane (any index equal to -n/2, or kz = n/2)
-    are zero. Gaussian: (g1 + i g2)/sqrt(2), Box-Muller; fixed amplitude: exp(i theta)
-    with the same phase theta = 2 pi u2. ``sign`` is +1, or -1 for the paired
-    realisation (every phase shifted by pi).
+    Gaussian (Marsaglia polar method, Marsaglia & Bray 1964, SIAM Rev. 6, 260): with
+    (u, v) uniform in the unit disk and s = u^2 + v^2, g1 + i g2 = (u + i v)
+    sqrt(-2 ln s / s) are two unit normals, so W = (u + i v) sqrt(-ln s / s) has
+    <|W|^2> = 1. Fixed amplitude: W = (u + i v)/sqrt(s), the same phase with |W| = 1.
+    ``sign`` is +1, or -1 for the paired realisation (every phase shifted by pi).
+    Values are computed in float64 and rounded once on store.
     """
     half = n // 2
     nz = out.shape[2]
@@ -90,18 +104,16 @@ def _white_noise_slab(key0, key1, n, ix0, fixed, sign, amp_of_m2, out):
                     continue
                 canonical = kz > 0 or ky > 0 or (ky == 0 and kx > 0)
                 if canonical:
-                    u1, u2 = _mode_uniforms(kx, ky, kz, key0, key1)
+                    u, v, s = _mode_disk_point(kx, ky, kz, key0, key1)
                 else:
-                    u1, u2 = _mode_uniforms(-kx, -ky, kz, key0, key1)
-                theta = _TWO_PI * u2
+                    u, v, s = _mode_disk_point(-kx, -ky, kz, key0, key1)
+                    v = -v
                 if fixed:
-                    amp = 1.0
+                    f = 1.0 / np.sqrt(s)
                 else:
-                    amp = np.sqrt(-np.log(u1))  # |g1 + i g2|/sqrt(2) = sqrt(-2 ln u1)/sqrt(2)
-                amp *= sign * amp_of_m2[kx * kx + ky * ky + kz * kz]
-                re = amp * np.cos(theta)
-                im = amp * np.sin(theta)
-                out[i, j, l] = complex(re, im if canonical else -im)
+                    f = np.sqrt(-np.log(s) / s)
+                f *= sign * amp_of_m2[kx * kx + ky * ky + kz * kz]
+                out[i, j, l] = complex(u * f, v * f)
 
 
 @njit(cache=True, parallel=True)
@@ -153,55 +165,71 @@ def _subtract_square(out, p):
         o[i] -= q[i] * q[i]
 
 
+@njit(cache=True, inline="always")
+def _wrap(x, box_size):
+    """x mapped into [0, L) (periodic box)."""
+    if x < 0.0:
+        x += box_size
+        if x < 0.0:
+            x -= box_size * np.floor(x / box_size)
+    elif x >= box_size:
+        x -= box_size
+        if x >= box_size:
+            x -= box_size * np.floor(x / box_size)
+    return x
+
+
 @njit(cache=True, parallel=True)
-def _particle_slab(psi, psi2, i0, i1, c_pos1, c_pos2, c_vel1, c_vel2, box_size, pos_out, vel_out):
+def _particle_slab(psi, psi2, i0, i1, coeffs, box_size, pos_out, vel_out, plane_stats):
     """Positions and velocities of the particles with first grid index i0 <= i < i1.
 
-    Row p - (i0 n^2) of the outputs is particle p = (i n + j) n + k:
+    Row p - (i0 n^2) of the outputs is particle p = (i n + j) n + k, with
+    coeffs = (c_pos1, c_pos2, c_vel1, c_vel2):
       pos = (q + c_pos1 psi[d] + c_pos2 psi2[d]) mod L,  q = (i, j, k) L/n,
       vel = c_vel1 psi[d] + c_vel2 psi2[d],
-    evaluated in float64 and rounded once on store. psi, psi2: (3, n, n, n); psi2 may
-    be a zero-size array (first order).
+    evaluated in float64 and rounded once on store (a position that rounds up to L
+    is stored as 0). psi, psi2: (3, n, n, n); psi2 may be a zero-size array.
+    plane_stats[i - i0] receives, for plane i, the sum, sum of squares and max |.| of
+    the displacement components and of the velocity components (float64, fixed
+    order inside the plane: deterministic on any thread count).
     """
     n = psi.shape[1]
     spacing = box_size / n
     second = psi2.size > 0
+    cp1, cp2, cv1, cv2 = coeffs[0], coeffs[1], coeffs[2], coeffs[3]
     for i in prange(i0, i1):
+        sd = 0.0
+        sd2 = 0.0
+        md = 0.0
+        sv = 0.0
+        sv2 = 0.0
+        mv = 0.0
+        qx = i * spacing
         for j in range(n):
+            qy = j * spacing
+            row = ((i - i0) * n + j) * n
             for k in range(n):
-                p = ((i - i0) * n + j) * n + k
+                p = row + k
                 for d in range(3):
                     s1 = np.float64(psi[d, i, j, k])
                     s2 = np.float64(psi2[d, i, j, k]) if second else 0.0
-                    q = (i if d == 0 else (j if d == 1 else k)) * spacing
-                    x = (q + (c_pos1 * s1 + c_pos2 * s2)) % box_size
-                    xr = pos_out.dtype.type(x)
-                    if xr >= box_size:  # rounding up to L (or a tiny negative) wraps to 0
-                        xr = pos_out.dtype.type(0.0)
-                    pos_out[p, d] = xr
-                    vel_out[p, d] = c_vel1 * s1 + c_vel2 * s2
-
-
-@njit(cache=True)
-def _displacement_moments(psi, psi2, i0, i1, c1, c2):
-    """Sum and sum of squares (float64) and max |.| of c1 psi + c2 psi2 over slab [i0, i1).
-
-    Serial loop in a fixed order: deterministic on any thread count.
-    """
-    n = psi.shape[1]
-    second = psi2.size > 0
-    s = 0.0
-    s2 = 0.0
-    mx = 0.0
-    for d in range(3):
-        for i in range(i0, i1):
-            for j in range(n):
-                for k in range(n):
-                    v = c1 * np.float64(psi[d, i, j, k])
-                    if second:
-                        v += c2 * np.float64(psi2[d, i, j, k])
-                    s += v
-                    s2 += v * v
-                    if abs(v) > mx:
-                        mx = abs(v)
-    return s, s2, mx
+                    disp = cp1 * s1 + cp2 * s2
+                    vel = cv1 * s1 + cv2 * s2
+                    q = qx if d == 0 else (qy if d == 1 else k * spacing)
+                    pos_out[p, d] = _wrap(q + disp, box_size)
+                    if pos_out[p, d] >= box_size:
+                        pos_out[p, d] = 0.0
+                    vel_out[p, d] = vel
+                    sd += disp
+                    sd2 += disp * disp
+                    md = max(md, abs(disp))
+                    sv += vel
+                    sv2 += vel * vel
+                    mv = max(mv, abs(vel))
+        r = i - i0
+        plane_stats[r, 0] = sd
+        plane_stats[r, 1] = sd2
+        plane_stats[r, 2] = md
+        plane_stats[r, 3] = sv
+        plane_stats[r, 4] = sv2
+        plane_stats[r, 5] = mv

@@ -12,15 +12,19 @@ Conventions
   axis 0 and 1 meaning kx = i for i < n/2 and i - n otherwise, kz = l >= 0.
 * White noise: the complex amplitude of every integer wavevector comes from the
   counter-based generator Philox4x32-10 (Salmon et al. 2011) with counter
-  (kx, ky, kz, 0) (32-bit two's complement) and key (seed mod 2^32, seed div 2^32):
-  it depends on (seed, kx, ky, kz) alone, never on n, threads or slabs. The
-  canonical member of each pair (k, -k) draws; the other is its conjugate
-  (exact Hermitian symmetry). The k = 0 mode is zero (the box has the mean
-  density) and so is every mode on a Nyquist plane (a component equal to -n/2,
-  or kz = n/2), where the pair k, -k falls onto one grid point.
-* Gaussian amplitude: (g1 + i g2)/sqrt(2) with unit normal g1, g2 (Box-Muller),
-  so <|W|^2> = 1; fixed amplitude (Angulo & Pontzen 2016, MNRAS 462, L1): |W| = 1
-  with the same phases; paired: every phase shifted by pi (W -> -W).
+  (kx, ky, kz, attempt) (32-bit two's complement) and key (seed mod 2^32,
+  seed div 2^32): it depends on (seed, kx, ky, kz) alone, never on n, threads or
+  slabs. The canonical member of each pair (k, -k) (kz > 0, or kz = 0 and ky > 0,
+  or kz = ky = 0 and kx > 0) draws; the other is its conjugate (exact Hermitian
+  symmetry). The k = 0 mode is zero (the box has the mean density) and so is every
+  mode on a Nyquist plane (a component equal to -n/2, or kz = n/2), where the pair
+  k, -k falls onto one grid point.
+* Gaussian amplitude by the Marsaglia polar method (Marsaglia & Bray 1964): a point
+  (u, v) uniform in the unit disk (attempt 0, 1, ... until 0 < s = u^2 + v^2 < 1)
+  gives W = (u + i v) sqrt(-ln s / s), a complex Gaussian with <|W|^2> = 1 (|W|^2 is
+  exponential, the phase uniform). Fixed amplitude (Angulo & Pontzen 2016, MNRAS
+  462, L1): W = (u + i v)/sqrt(s), |W| = 1 with the same phases; paired: every phase
+  shifted by pi (W -> -W).
 
 The work is organised by slabs of constant first index, so a slab of the field
 can be produced on its own (``ix0``, ``ix1``), as a distributed run will need.

@@ -93,6 +93,11 @@ def write_particles_streamed(path, growth, disp, mass, dtype, write_ids, paramet
 
     Same file as :func:`write_particles` for the same inputs (both use
     :func:`icgen.particles.slabs`' kernel). ``progress`` is called with the fraction done.
+
+    Returns
+    -------
+    dict
+        Displacement and velocity statistics (:func:`icgen.particles.summarize`).
     """
     from . import particles  # the numerical core; imported here to keep this module light
 
@@ -109,7 +114,9 @@ def write_particles_streamed(path, growth, disp, mass, dtype, write_ids, paramet
             for ds, name in ((pos, "position"), (vel, "velocity"), (ids, "id")):
                 if ds is not None:
                     ds.attrs["units"] = UNITS[name]
-            for row0, p, v in particles.slabs(growth, disp, dtype):
+            planes = []
+            for row0, p, v, stats in particles.slabs(growth, disp, dtype):
+                planes.append(stats)
                 rows = p.shape[0]
                 pos[row0:row0 + rows] = p
                 vel[row0:row0 + rows] = v
@@ -117,7 +124,7 @@ def write_particles_streamed(path, growth, disp, mass, dtype, write_ids, paramet
                     ids[row0:row0 + rows] = np.arange(row0, row0 + rows, dtype=np.uint64)
                 if progress:
                     progress((row0 + rows) / n**3)
-    return path
+    return particles.summarize(np.concatenate(planes))
 
 
 def read_particles(path):

@@ -26,15 +26,13 @@ J div_x(x'' + ...) with J = 1 + div psi + mu_2(psi) + ...; requiring the D2
 equation D2'' + (2 + dlnH/dlna) D2' - 1.5 Omega_m D2 = -1.5 Omega_m D1^2 gives
 div psi_2 = mu_2(psi_1) = S (derivation in the Notes of :func:`displacements`).
 
-Fourier transforms use ``scipy.fft`` with ``norm="forward"`` (see :mod:`icgen.field`).
+Fourier transforms: :mod:`icgen._fft` (scipy.fft passes, ``norm="forward"`` convention of :mod:`icgen.field`).
 """
 
 from dataclasses import dataclass
 
 import numpy as np
-import scipy.fft as sfft
-
-from . import _kernels
+from . import _fft, _kernels
 from .errors import ParameterError
 from .field import DensityModes
 
@@ -81,7 +79,7 @@ class Displacements:
 
 
 def _inverse(field_k, n, workers):
-    return sfft.irfftn(field_k, s=(n, n, n), norm="forward", workers=workers, overwrite_x=True)
+    return _fft.inverse_real_3d(field_k, n, workers)
 
 
 def displacements(modes, order=2, workers=None, progress=None, overwrite_modes=False):
@@ -153,7 +151,7 @@ def displacements(modes, order=2, workers=None, progress=None, overwrite_modes=F
             _kernels._derivative_modes(dk, n, 0, kf, d1, d2, scratch)
             _kernels._subtract_square(source, _inverse(scratch, n, workers))
             tick(f"phi_{d1}{d2}")
-        source_k = sfft.rfftn(source, norm="forward", workers=workers, overwrite_x=True)
+        source_k = _fft.forward_real_3d(source, workers)
         del source
         tick("source")
         psi_2 = np.empty((3, n, n, n), dtype=rdt)

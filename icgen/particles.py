@@ -20,7 +20,7 @@ from .errors import ParameterError
 from .lpt import Displacements
 from .units import RHO_CRIT_100
 
-__all__ = ["ParticleSet", "at", "slabs", "displacement_stats", "particle_mass", "StartGrowth"]
+__all__ = ["ParticleSet", "at", "slabs", "summarize", "particle_mass", "StartGrowth"]
 
 
 def particle_mass(omega_m, box_size, n):
@@ -66,6 +66,8 @@ class ParticleSet:
     growth : StartGrowth
         a, D1, f1, D2, f2, H at the start.
     lpt_order : int
+    stats : dict
+        Displacement and velocity statistics (:func:`summarize`).
     """
 
     position: np.ndarray
@@ -75,6 +77,7 @@ class ParticleSet:
     box_size: float
     growth: StartGrowth
     lpt_order: int
+    stats: dict | None = None
 
     def __post_init__(self):
         for arr in (self.position, self.velocity, self.id):
@@ -88,10 +91,10 @@ class ParticleSet:
 
 
 def _coefficients(growth, disp):
-    """(c_pos1, c_pos2, c_vel1, c_vel2): x = q + c_pos1 psi_1 + c_pos2 psi_2, v = c_vel1 psi_1 + c_vel2 psi_2."""
+    """[c_pos1, c_pos2, c_vel1, c_vel2]: x = q + c_pos1 psi_1 + c_pos2 psi_2, v = c_vel1 psi_1 + c_vel2 psi_2."""
     a_h = growth.a * growth.H / growth.h  # a H in km/s per (Mpc/h)
     d2 = growth.D2 if disp.psi_2 is not None else 0.0
-    return growth.D1, d2, a_h * growth.f1 * growth.D1, a_h * growth.f2 * d2
+    return np.array([growth.D1, d2, a_h * growth.f1 * growth.D1, a_h * growth.f2 * d2])
 
 
 def _psi2_or_empty(disp):
@@ -103,6 +106,29 @@ def _check_dtype(dtype):
     if dtype not in (np.float32, np.float64):
         raise ParameterError(f"precision = {dtype.name!r}: allowed float32 and float64")
     return dtype
+
+
+def summarize(plane_stats):
+    """Displacement and velocity statistics from per-plane sums (see :func:`slabs`).
+
+    Parameters
+    ----------
+    plane_stats : ndarray, shape (n, 6)
+        Per grid plane: sum, sum of squares and max |.| of the displacement components
+        (Mpc/h) and of the velocity components (km/s).
+
+    Returns
+    -------
+    dict
+        ``{"displacement": {"mean", "rms", "max"}, "velocity": {...}}`` over all particles
+        and components (sums in a fixed order: deterministic).
+    """
+    n = plane_stats.shape[0]
+    count = 3.0 * n**3
+    tot = plane_stats.sum(axis=0)
+    mx = plane_stats.max(axis=0)
+    return {"displacement": {"mean": tot[0] / count, "rms": float(np.sqrt(tot[1] / count)), "max": float(mx[2])},
+            "velocity": {"mean": tot[3] / count, "rms": float(np.sqrt(tot[4] / count)), "max": float(mx[5])}}
 
 
 def slabs(growth, disp, dtype=np.float32, planes_per_slab=None):
@@ -122,6 +148,8 @@ def slabs(growth, disp, dtype=np.float32, planes_per_slab=None):
         First particle row of the slab (particle (i n + j) n + k is row (i n + j) n + k).
     position, velocity : ndarray, shape (rows, 3)
         As in :func:`at`; the buffers are reused between slabs (copy them to keep them).
+    plane_stats : ndarray, shape (planes, 6)
+        Per-plane sums for :func:`summarize`.
     """
     if not isinstance(disp, Displacements):
         raise TypeError(f"disp must be Displacements, got {type(disp).__name__}")
@@ -135,22 +163,9 @@ def slabs(growth, disp, dtype=np.float32, planes_per_slab=None):
     for i0 in range(0, n, per):
         i1 = min(n, i0 + per)
         rows = (i1 - i0) * n * n
-        _kernels._particle_slab(disp.psi_1, psi2, i0, i1, *c, disp.box_size, pos[:rows], vel[:rows])
-        yield i0 * n * n, pos[:rows], vel[:rows]
-
-
-def displacement_stats(growth, disp, quantity="displacement"):
-    """Mean, rms and max |.| over all particles and components of the displacement (Mpc/h)
-    c1 psi_1 + c2 psi_2, or of the velocity (km/s) with ``quantity="velocity"``.
-
-    Computed from the fields in float64 in a fixed order (deterministic).
-    """
-    c_pos1, c_pos2, c_vel1, c_vel2 = _coefficients(growth, disp)
-    c1, c2 = (c_pos1, c_pos2) if quantity == "displacement" else (c_vel1, c_vel2)
-    n = disp.n
-    s, s2, mx = _kernels._displacement_moments(disp.psi_1, _psi2_or_empty(disp), 0, n, c1, c2)
-    count = 3 * n**3
-    return {"mean": s / count, "rms": float(np.sqrt(s2 / count)), "max": float(mx)}
+        stats = np.empty((i1 - i0, 6))
+        _kernels._particle_slab(disp.psi_1, psi2, i0, i1, c, disp.box_size, pos[:rows], vel[:rows], stats)
+        yield i0 * n * n, pos[:rows], vel[:rows], stats
 
 
 def at(growth, disp, omega_m, dtype=np.float32, write_ids=True):
@@ -181,8 +196,9 @@ def at(growth, disp, omega_m, dtype=np.float32, write_ids=True):
     n, box = disp.n, disp.box_size
     pos = np.empty((n**3, 3), dtype=dtype)
     vel = np.empty((n**3, 3), dtype=dtype)
-    _kernels._particle_slab(disp.psi_1, _psi2_or_empty(disp), 0, n, *_coefficients(growth, disp), box,
-                            pos, vel)
+    stats = np.empty((n, 6))
+    _kernels._particle_slab(disp.psi_1, _psi2_or_empty(disp), 0, n, _coefficients(growth, disp), box,
+                            pos, vel, stats)
     ids = np.arange(n**3, dtype=np.uint64) if write_ids else None
     return ParticleSet(position=pos, velocity=vel, id=ids, mass=particle_mass(omega_m, box, n),
-                       box_size=box, growth=growth, lpt_order=disp.order)
+                       box_size=box, growth=growth, lpt_order=disp.order, stats=summarize(stats))

@@ -23,15 +23,27 @@ def philox4x32_10(counter, key):
 
 
 def mode_value(seed, kx, ky, kz, fixed=False, sign=1.0):
-    """White-noise amplitude of one integer wavevector, following icgen.field's documented rule."""
+    """White-noise amplitude of one integer wavevector, following icgen.field's documented rule.
+
+    Marsaglia polar method (Marsaglia & Bray 1964): attempts t = 0, 1, ... use the Philox
+    block of counter (kx, ky, kz, t) for a point (u, v) in [-1, 1)^2, accepted when
+    0 < s = u^2 + v^2 < 1; W = (u + i v) sqrt(-ln s / s), or (u + i v)/sqrt(s) fixed.
+    """
     canonical = kz > 0 or ky > 0 or (ky == 0 and kx > 0)
     cx, cy = (kx, ky) if canonical else (-kx, -ky)
-    r = philox4x32_10((cx, cy, kz, 0), (seed & MASK, seed >> 32))
-    u1 = (((r[0] >> 5) * 67108864 + (r[1] >> 6)) + 1) * 2.0**-53
-    u2 = ((r[2] >> 5) * 67108864 + (r[3] >> 6)) * 2.0**-53
-    amp = 1.0 if fixed else np.sqrt(-np.log(u1))
-    w = sign * amp * np.exp(2j * np.pi * u2)
-    return w if canonical else np.conj(w)
+    attempt = 0
+    while True:
+        r = philox4x32_10((cx, cy, kz, attempt), (seed & MASK, seed >> 32))
+        u = ((r[0] >> 5) * 67108864 + (r[1] >> 6)) * 2.0**-52 - 1.0
+        v = ((r[2] >> 5) * 67108864 + (r[3] >> 6)) * 2.0**-52 - 1.0
+        s = u * u + v * v
+        if 0.0 < s < 1.0:
+            break
+        attempt += 1
+    f = 1.0 / np.sqrt(s) if fixed else np.sqrt(-np.log(s) / s)
+    f *= sign
+    w = complex(u * f, v * f)
+    return w if canonical else w.conjugate()
 
 
 def white_noise(seed, n, fixed=False, paired=False):

@@ -61,7 +61,7 @@ def test_fixed_amplitude_realisation_has_exactly_the_expected_variance(bg):
     assert dens.var() == pytest.approx(var_d, rel=1e-12)
     d = lpt.displacements(m, order=1)
     g = particles.StartGrowth(a=1.0, D1=1.0, f1=1.0, D2=0.0, f2=2.0, H=70.0, h=0.7)
-    stats = particles.displacement_stats(g, d)
+    stats = particles.at(g, d, 0.3, np.float64).stats["displacement"]
     assert 3 * stats["rms"] ** 2 == pytest.approx(var_psi, rel=1e-12)
 
 

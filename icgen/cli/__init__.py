@@ -16,21 +16,30 @@ from ..errors import InputError
 __all__ = ["main", "build_parser"]
 
 
-def _command_modules():
+def _module_names():
     pkg = sys.modules[__name__]
-    names = sorted(m.name for m in pkgutil.iter_modules(pkg.__path__) if m.name.startswith("cmd_"))
+    return sorted(m.name for m in pkgutil.iter_modules(pkg.__path__) if m.name.startswith("cmd_"))
+
+
+def _command_modules(only=None):
+    """Import the command modules: all of them, or just the one named ``only`` (start-up time)."""
+    names = _module_names()
+    if only is not None:
+        wanted = "cmd_" + only.replace("-", "_")
+        if wanted in names:
+            names = [wanted]
     return [importlib.import_module(f"{__name__}.{n}") for n in names]
 
 
-def build_parser():
-    """The argument parser with every subcommand registered."""
+def build_parser(command=None):
+    """The argument parser with every subcommand registered (or only ``command``'s, if it exists)."""
     parser = argparse.ArgumentParser(
         prog="icgen",
         description="Initial conditions, snapshot schedules, step tables and run checks "
                     "for cosmological N-body simulations.")
     parser.add_argument("--version", action="version", version=f"icgen {__version__}")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
-    for mod in _command_modules():
+    for mod in _command_modules(command):
         p = sub.add_parser(mod.NAME, help=mod.HELP, description=mod.HELP)
         mod.add_arguments(p)
         p.add_argument("--debug", action="store_true", help="show the full traceback on errors")
@@ -40,7 +49,9 @@ def build_parser():
 
 def main(argv=None):
     """Entry point of the ``icgen`` console script; returns the exit status."""
-    parser = build_parser()
+    argv = sys.argv[1:] if argv is None else list(argv)
+    first = next((a for a in argv if not a.startswith("-")), None)
+    parser = build_parser(first)
     args = parser.parse_args(argv)
     if not getattr(args, "_run", None):
         parser.print_help()

@@ -59,13 +59,12 @@ def generate(params, out, overwrite=False, workers=None, quiet=False):
             extra["start_rule"] = json.dumps({"rule": "auto (common practice, see icgen.start)",
                                               **advice.limits, "z_start_1lpt": advice.z_start_1lpt,
                                               "z_start_2lpt": advice.z_start_2lpt})
-        io_hdf5.write_particles_streamed(out, growth, disp, mass, setup.dtype, setup.write_ids,
+        stats = io_hdf5.write_particles_streamed(out, growth, disp, mass, setup.dtype, setup.write_ids,
                                          params.to_toml(), cosmo, setup.seed, setup.fixed_amplitude,
                                          setup.paired, overwrite, extra)
         bar.update(1)
     info = {"out": str(out), "bg": bg, "pk": pk, "n": setup.n, "box_size": setup.box_size, "order": setup.lpt_order,
-            "mass": mass, "growth": growth, "disp": particles.displacement_stats(growth, disp),
-            "vel": particles.displacement_stats(growth, disp, "velocity"),
+            "mass": mass, "growth": growth, "disp": stats["displacement"], "vel": stats["velocity"],
             "seconds": time.perf_counter() - t0}
     return info
 
