@@ -42,9 +42,9 @@ __all__ = ["white_noise", "amplitude_table", "DensityModes", "linear_density_mod
 
 
 def check_grid(n, box_size):
-    """Validate a grid: n even, 2 <= n <= 16384; 0 < box_size."""
-    if isinstance(n, bool) or not isinstance(n, (int, np.integer)) or n < 2 or n > 16384 or n % 2:
-        raise ParameterError(f"particles_per_side = {n!r}: need an even integer in [2, 16384]")
+    """Validate a grid: n even, 4 <= n <= 16384; 0 < box_size."""
+    if isinstance(n, bool) or not isinstance(n, (int, np.integer)) or n < 4 or n > 16384 or n % 2:
+        raise ParameterError(f"particles_per_side = {n!r}: need an even integer in [4, 16384]")
     if not (np.isfinite(box_size) and box_size > 0):
         raise ParameterError(f"box_size = {box_size!r}: need a positive length in Mpc/h")
 

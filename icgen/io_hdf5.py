@@ -8,13 +8,15 @@ Root attributes:
   scale_factor, redshift, grid_per_side, n_particles, particle_mass (Msun/h),
   lpt_order, seed, fixed_amplitude, paired, D1, f1, D2, f2 (at the start),
   H (km/s/Mpc at the start), units (JSON map of quantity -> unit).
-Datasets (each with a ``units`` attribute):
+Datasets (each with a ``units`` attribute and ``checksum_crc32``, the zlib CRC-32 of its
+values as little-endian bytes in row-major order):
   /particles/position  (n^3, 3) float32|float64  Mpc/h comoving, in [0, box_size)
   /particles/velocity  (n^3, 3) float32|float64  km/s peculiar, v = a dx/dt
   /particles/id        (n^3,)   uint64           (i n + j) n + k on the Lagrangian grid
 """
 
 import json
+import zlib
 
 import h5py
 import numpy as np
@@ -22,7 +24,81 @@ import numpy as np
 from . import __version__
 from .io_output import atomic_path
 
-__all__ = ["FORMAT", "FORMAT_VERSION", "write_particles", "write_particles_streamed", "read_particles"]
+__all__ = ["FORMAT", "FORMAT_VERSION", "REQUIRED_ATTRS", "write_particles", "write_particles_streamed",
+           "read_particles", "checksum", "verify_file"]
+
+#: Root attributes every particle file carries.
+REQUIRED_ATTRS = ("format", "format_version", "created_by", "parameters", "cosmology", "box_size",
+                  "scale_factor", "redshift", "grid_per_side", "n_particles", "particle_mass",
+                  "lpt_order", "seed", "fixed_amplitude", "paired", "D1", "f1", "D2", "f2", "H", "units")
+
+
+def checksum(values, crc=0):
+    """Running zlib CRC-32 of an array's values as little-endian bytes in row-major order."""
+    arr = np.ascontiguousarray(values)
+    arr = arr.astype(arr.dtype.newbyteorder("<"), copy=False)
+    return zlib.crc32(memoryview(arr).cast("B"), crc)
+
+
+def verify_file(path, full=False):
+    """Check a particle file: format, required attributes, dataset shapes and checksums.
+
+    Parameters
+    ----------
+    path : str or Path
+    full : bool
+        Recompute every dataset's CRC-32 (reads the whole file); otherwise only check
+        that the checksums are stored.
+
+    Returns
+    -------
+    list of str
+        Problems found (empty if the file is sound).
+    """
+    problems = []
+    try:
+        f = h5py.File(path, "r")
+    except OSError as exc:
+        return [f"cannot open {path} as HDF5: {exc}"]
+    with f:
+        if f.attrs.get("format") != FORMAT:
+            problems.append(f"format attribute is {f.attrs.get('format')!r}, expected {FORMAT!r}")
+        missing = [k for k in REQUIRED_ATTRS if k not in f.attrs]
+        if missing:
+            problems.append("missing root attributes: " + ", ".join(missing))
+        n_part = int(f.attrs.get("n_particles", -1))
+        grp = f.get("particles")
+        if grp is None:
+            return problems + ["missing group /particles"]
+        for name, shape in (("position", (n_part, 3)), ("velocity", (n_part, 3)), ("id", (n_part,))):
+            if name not in grp:
+                if name != "id":
+                    problems.append(f"missing dataset /particles/{name}")
+                continue
+            ds = grp[name]
+            if ds.shape != shape:
+                problems.append(f"/particles/{name} has shape {ds.shape}, expected {shape}")
+            if "checksum_crc32" not in ds.attrs:
+                problems.append(f"/particles/{name} has no checksum_crc32")
+            elif full:
+                crc, rows = 0, max(1, (1 << 22) // max(1, int(np.prod(ds.shape[1:]))))
+                for r0 in range(0, ds.shape[0], rows):
+                    crc = checksum(ds[r0:r0 + rows], crc)
+                if crc != int(ds.attrs["checksum_crc32"]):
+                    problems.append(f"/particles/{name}: checksum mismatch (stored "
+                                    f"{int(ds.attrs['checksum_crc32']):08x}, computed {crc:08x})")
+    return problems
+
+
+def _verify_or_raise(tmp, attrs):
+    """Read back a just-written file's attributes and checksums before it is renamed."""
+    problems = verify_file(tmp, full=False)
+    with h5py.File(tmp, "r") as f:
+        for key in ("format", "n_particles", "grid_per_side", "seed"):
+            if f.attrs[key] != attrs[key]:
+                problems.append(f"attribute {key} reads back as {f.attrs[key]!r}, wrote {attrs[key]!r}")
+    if problems:
+        raise OSError(f"verification of the written file failed: {'; '.join(problems)}")
 
 FORMAT = "icgen.particles"
 FORMAT_VERSION = 1
@@ -83,6 +159,8 @@ def write_particles(path, parts, parameters_toml, cosmology, seed, fixed_amplitu
                     continue
                 ds = grp.create_dataset(name, data=arr)
                 ds.attrs["units"] = UNITS[name]
+                ds.attrs["checksum_crc32"] = np.uint32(checksum(arr))
+        _verify_or_raise(tmp, attrs)
     return path
 
 
@@ -115,15 +193,24 @@ def write_particles_streamed(path, growth, disp, mass, dtype, write_ids, paramet
                 if ds is not None:
                     ds.attrs["units"] = UNITS[name]
             planes = []
+            crc = {"position": 0, "velocity": 0, "id": 0}
             for row0, p, v, stats in particles.slabs(growth, disp, dtype):
                 planes.append(stats)
                 rows = p.shape[0]
                 pos[row0:row0 + rows] = p
                 vel[row0:row0 + rows] = v
+                crc["position"] = checksum(p, crc["position"])
+                crc["velocity"] = checksum(v, crc["velocity"])
                 if ids is not None:
-                    ids[row0:row0 + rows] = np.arange(row0, row0 + rows, dtype=np.uint64)
+                    block = np.arange(row0, row0 + rows, dtype=np.uint64)
+                    ids[row0:row0 + rows] = block
+                    crc["id"] = checksum(block, crc["id"])
                 if progress:
                     progress((row0 + rows) / n**3)
+            for ds, name in ((pos, "position"), (vel, "velocity"), (ids, "id")):
+                if ds is not None:
+                    ds.attrs["checksum_crc32"] = np.uint32(crc[name])
+        _verify_or_raise(tmp, attrs)
     return particles.summarize(np.concatenate(planes))
 
 

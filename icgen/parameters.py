@@ -92,7 +92,8 @@ SCHEMA = {
     },
     "box": {
         "size": Key("float", REQUIRED, 1e-3, 1e6, doc="comoving box side in Mpc/h"),
-        "particles_per_side": Key("int", REQUIRED, 2, 16384, doc="particles per side, N"),
+        "particles_per_side": Key("int", REQUIRED, 4, 16384,
+                                  doc="particles per side, N (even; at least 4 spacings per box side)"),
     },
     "start": {
         "redshift": Key("float_or_auto", "auto", 0.0, 1e4, doc='start redshift or "auto"'),
@@ -306,6 +307,10 @@ class Parameters:
     def to_toml(self):
         """TOML text of every given value plus the resolved cosmology: reproduces this run."""
         sections = {sec: dict(keys) for sec, keys in self.given.items()}
+        for sec, keys in sections.items():  # relative paths would break once the text moves
+            for key, value in keys.items():
+                if SCHEMA[sec][key].kind == "path" and value is not None:
+                    keys[key] = str(self.path(sec, key).resolve())
         cosmo = dataclasses.asdict(self.cosmology)
         sections["cosmology"] = {k: cosmo[k] for k in SCHEMA["cosmology"]}
         return to_toml(sections)

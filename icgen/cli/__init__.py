@@ -8,6 +8,7 @@ ends with one line on stderr and exit status 2; ``--debug`` shows the traceback.
 import argparse
 import importlib
 import pkgutil
+import signal
 import sys
 
 from .. import __version__
@@ -47,6 +48,14 @@ def build_parser(command=None):
     return parser
 
 
+class Terminated(KeyboardInterrupt):
+    """Raised in the main thread on SIGTERM, so outputs in progress are cleaned up."""
+
+
+def _terminate(signum, frame):
+    raise Terminated()
+
+
 def main(argv=None):
     """Entry point of the ``icgen`` console script; returns the exit status."""
     argv = sys.argv[1:] if argv is None else list(argv)
@@ -56,6 +65,7 @@ def main(argv=None):
     if not getattr(args, "_run", None):
         parser.print_help()
         return 2
+    previous = signal.signal(signal.SIGTERM, _terminate)  # SIGTERM unwinds like Ctrl-C
     try:
         return int(args._run(args) or 0)
     except InputError as exc:
@@ -63,11 +73,21 @@ def main(argv=None):
             raise
         print(f"icgen {args.command}: error: {exc}", file=sys.stderr)
         return 2
-    except KeyboardInterrupt:
+    except OSError as exc:
         if args.debug:
             raise
-        print(f"icgen {args.command}: interrupted; no output was left behind", file=sys.stderr)
-        return 130
+        where = f" {exc.filename}" if exc.filename else ""
+        print(f"icgen {args.command}: error: could not read or write{where}: {exc.strerror or exc}; "
+              "no partial output was left behind", file=sys.stderr)
+        return 1
+    except KeyboardInterrupt as exc:
+        if args.debug:
+            raise
+        what = "terminated (SIGTERM)" if isinstance(exc, Terminated) else "interrupted"
+        print(f"icgen {args.command}: {what}; no partial output was left behind", file=sys.stderr)
+        return 143 if isinstance(exc, Terminated) else 130
+    finally:
+        signal.signal(signal.SIGTERM, previous)
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -1,5 +1,6 @@
 """``icgen ics``: particle initial conditions (Zel'dovich or 2LPT) in one HDF5 file."""
 
+import hashlib
 import json
 import os
 import time
@@ -55,6 +56,10 @@ def generate(params, out, overwrite=False, workers=None, quiet=False):
         growth = particles.StartGrowth.from_background(bg, a_start)
         mass = particles.particle_mass(cosmo.omega_m, setup.box_size, setup.n)
         extra = {}
+        if params.get("spectrum", "source") == "table":
+            table = params.path("spectrum", "table")
+            extra["input_table"] = str(table)
+            extra["input_table_sha256"] = hashlib.sha256(table.read_bytes()).hexdigest()
         if advice is not None:
             extra["start_rule"] = json.dumps({"rule": "auto (common practice, see icgen.start)",
                                               **advice.limits, "z_start_1lpt": advice.z_start_1lpt,
