@@ -72,8 +72,10 @@ def _mode_disk_point(kx, ky, kz, key0, key1):
 
 
 @njit(cache=True, parallel=True)
-def _white_noise_slab(key0, key1, n, ix0, fixed, sign, amp_of_m2, out):
-    """Fill out[i, j, l] with amp_of_m2[m] times the white noise of FFT mode (ix0 + i, j, l).
+def _white_noise_slab(key0, key1, n, ix0, iy0, fixed, sign, amp_of_m2, out):
+    """Fill out[i, j, l] with amp_of_m2[m] times the white noise of FFT mode (ix0 + i, iy0 + j, l).
+
+    ``out`` is a block (nx, ny, n//2 + 1) of the half spectrum starting at (ix0, iy0).
 
     m = kx^2 + ky^2 + kz^2 (the scaling by the spectrum is fused into the draw; pass
     ones for pure white noise). The amplitude of integer wavevector (kx, ky, kz)
@@ -95,8 +97,9 @@ def _white_noise_slab(key0, key1, n, ix0, fixed, sign, amp_of_m2, out):
     for i in prange(out.shape[0]):
         ix = ix0 + i
         kx = ix if ix < half else ix - n
-        for j in range(n):
-            ky = j if j < half else j - n
+        for j in range(out.shape[1]):
+            iy = iy0 + j
+            ky = iy if iy < half else iy - n
             for l in range(nz):
                 kz = l
                 if kx == -half or ky == -half or kz == half or (kx == 0 and ky == 0 and kz == 0):
@@ -117,8 +120,8 @@ def _white_noise_slab(key0, key1, n, ix0, fixed, sign, amp_of_m2, out):
 
 
 @njit(cache=True, parallel=True)
-def _derivative_modes(src, n, ix0, kf, d1, d2, out):
-    """out = F(k) src for one operator, in place-free form.
+def _derivative_modes(src, n, ix0, iy0, kf, d1, d2, out):
+    """out = F(k) src for one operator, on the block starting at mode (ix0, iy0, 0); out may be src.
 
     d2 < 0: first derivative over the Laplacian, F = i k_{d1} / k^2.
     d2 >= 0: second derivative over the Laplacian, F = k_{d1} k_{d2} / k^2.
@@ -130,7 +133,8 @@ def _derivative_modes(src, n, ix0, kf, d1, d2, out):
         ix = ix0 + i
         kx = ix if ix < half else ix - n
         for j in range(src.shape[1]):
-            ky = j if j < half else j - n
+            iy = iy0 + j
+            ky = iy if iy < half else iy - n
             for l in range(src.shape[2]):
                 kz = l
                 m2 = kx * kx + ky * ky + kz * kz
@@ -180,10 +184,12 @@ def _wrap(x, box_size):
 
 
 @njit(cache=True, parallel=True)
-def _particle_slab(psi, psi2, i0, i1, coeffs, box_size, pos_out, vel_out, plane_stats):
-    """Positions and velocities of the particles with first grid index i0 <= i < i1.
+def _particle_slab(psi, psi2, i0, i1, gx, coeffs, box_size, pos_out, vel_out, plane_stats):
+    """Positions and velocities of the particles of local planes i0 <= i < i1.
 
-    Row p - (i0 n^2) of the outputs is particle p = (i n + j) n + k, with
+    psi holds the planes gx, gx + 1, ... of the global grid (gx = 0 for a whole grid),
+    so local plane i is global plane gx + i. Row ((i - i0) n + j) n + k of the outputs
+    is the particle at global grid index (gx + i, j, k), with
     coeffs = (c_pos1, c_pos2, c_vel1, c_vel2):
       pos = (q + c_pos1 psi[d] + c_pos2 psi2[d]) mod L,  q = (i, j, k) L/n,
       vel = c_vel1 psi[d] + c_vel2 psi2[d],
@@ -193,7 +199,7 @@ def _particle_slab(psi, psi2, i0, i1, coeffs, box_size, pos_out, vel_out, plane_
     the displacement components and of the velocity components (float64, fixed
     order inside the plane: deterministic on any thread count).
     """
-    n = psi.shape[1]
+    n = psi.shape[2]
     spacing = box_size / n
     second = psi2.size > 0
     cp1, cp2, cv1, cv2 = coeffs[0], coeffs[1], coeffs[2], coeffs[3]
@@ -204,7 +210,7 @@ def _particle_slab(psi, psi2, i0, i1, coeffs, box_size, pos_out, vel_out, plane_
         sv = 0.0
         sv2 = 0.0
         mv = 0.0
-        qx = i * spacing
+        qx = (gx + i) * spacing
         for j in range(n):
             qy = j * spacing
             row = ((i - i0) * n + j) * n

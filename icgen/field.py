@@ -66,7 +66,7 @@ def _complex_dtype(dtype):
 
 
 def white_noise(seed, n, fixed_amplitude=False, paired=False, ix0=0, ix1=None, dtype=np.float64,
-                amp_of_m2=None):
+                amp_of_m2=None, iy0=0, iy1=None):
     """Unit white noise W(k) on the half-spectrum grid (or one slab of it).
 
     Parameters
@@ -81,6 +81,8 @@ def white_noise(seed, n, fixed_amplitude=False, paired=False, ix0=0, ix1=None, d
         Shift every phase by pi.
     ix0, ix1 : int
         Slab of the first axis to produce, 0 <= ix0 < ix1 <= n (default: all).
+    iy0, iy1 : int
+        Slab of the second axis to produce, 0 <= iy0 < iy1 <= n (default: all).
     dtype : {numpy.float64, numpy.float32}
         Real precision: complex128 or complex64 output. Amplitudes are computed in
         float64 and rounded once, so the complex64 field is the rounded complex128 one.
@@ -90,17 +92,18 @@ def white_noise(seed, n, fixed_amplitude=False, paired=False, ix0=0, ix1=None, d
 
     Returns
     -------
-    ndarray, complex128 or complex64, shape (ix1 - ix0, n, n//2 + 1)
+    ndarray, complex128 or complex64, shape (ix1 - ix0, iy1 - iy0, n//2 + 1)
         <|W|^2> = 1 except on the zeroed modes (module notes).
     """
     check_grid(n, 1.0)
     ix1 = n if ix1 is None else ix1
-    if not (0 <= ix0 < ix1 <= n):
-        raise ParameterError(f"slab [{ix0}, {ix1}) is not inside [0, {n})")
+    iy1 = n if iy1 is None else iy1
+    if not (0 <= ix0 < ix1 <= n and 0 <= iy0 < iy1 <= n):
+        raise ParameterError(f"block [{ix0}, {ix1}) x [{iy0}, {iy1}) is not inside [0, {n})^2")
     k0, k1 = _key(seed)
-    out = np.empty((ix1 - ix0, n, n // 2 + 1), dtype=_complex_dtype(dtype))
+    out = np.empty((ix1 - ix0, iy1 - iy0, n // 2 + 1), dtype=_complex_dtype(dtype))
     amp = np.ones(3 * (n // 2) ** 2 + 1) if amp_of_m2 is None else amp_of_m2
-    _kernels._white_noise_slab(k0, k1, n, ix0, bool(fixed_amplitude), -1.0 if paired else 1.0, amp, out)
+    _kernels._white_noise_slab(k0, k1, n, ix0, iy0, bool(fixed_amplitude), -1.0 if paired else 1.0, amp, out)
     return out
 
 
@@ -138,21 +141,30 @@ def amplitude_table(power, n, box_size):
 
 @dataclass(frozen=True, eq=False)
 class DensityModes:
-    """Fourier modes of the linear density contrast on the grid.
+    """Fourier modes of the linear density contrast on the grid (or this rank's slab of it).
 
     Attributes
     ----------
-    delta_k : ndarray, complex128 or complex64, shape (n, n, n//2 + 1)
-        delta_k with <|delta_k|^2> = P(k)/L^3 (module conventions), read-only.
+    delta_k : ndarray, complex128 or complex64, shape (n, ny, n//2 + 1)
+        delta_k with <|delta_k|^2> = P(k)/L^3 (module conventions), read-only; the
+        ky planes iy0 <= j < iy0 + ny (all of them, ny = n, in a serial run).
     n : int
         Grid points per side.
     box_size : float
         L in Mpc/h.
+    layout : Layout or None
+        The slab decomposition the block belongs to (None: the whole grid).
     """
 
     delta_k: np.ndarray
     n: int
     box_size: float
+    layout: object = None
+
+    @property
+    def iy0(self):
+        """First ky plane of the block."""
+        return 0 if self.layout is None else self.layout.y0
 
     def __post_init__(self):
         self.delta_k.flags.writeable = False
@@ -169,7 +181,7 @@ class DensityModes:
 
 
 def linear_density_modes(power, seed, n, box_size, fixed_amplitude=False, paired=False,
-                         dtype=np.float64):
+                         dtype=np.float64, layout=None):
     """Gaussian linear density modes delta_k = W(k) sqrt(P(k)/L^3).
 
     Parameters
@@ -182,6 +194,8 @@ def linear_density_modes(power, seed, n, box_size, fixed_amplitude=False, paired
         L in Mpc/h.
     dtype : {numpy.float64, numpy.float32}
         Real precision of the grid work (complex128 or complex64 modes).
+    layout : icgen.decomp.Layout, optional
+        Produce only this rank's ky slab (default: the whole grid).
 
     Returns
     -------
@@ -189,5 +203,6 @@ def linear_density_modes(power, seed, n, box_size, fixed_amplitude=False, paired
     """
     check_grid(n, box_size)
     amp = amplitude_table(power, n, box_size)
-    w = white_noise(seed, n, fixed_amplitude, paired, dtype=dtype, amp_of_m2=amp)
-    return DensityModes(delta_k=w, n=n, box_size=float(box_size))
+    iy0, iy1 = (0, n) if layout is None else (layout.y0, layout.y1)
+    w = white_noise(seed, n, fixed_amplitude, paired, dtype=dtype, amp_of_m2=amp, iy0=iy0, iy1=iy1)
+    return DensityModes(delta_k=w, n=n, box_size=float(box_size), layout=layout)

@@ -32,7 +32,8 @@ Fourier transforms: :mod:`icgen._fft` (scipy.fft passes, ``norm="forward"`` conv
 from dataclasses import dataclass
 
 import numpy as np
-from . import _fft, _kernels
+from . import _kernels
+from .decomp import Layout
 from .errors import ParameterError
 from .field import DensityModes
 
@@ -51,11 +52,14 @@ class Displacements:
         Second-order displacement field in Mpc/h, multiplied by D2 in positions.
     box_size : float
         L in Mpc/h.
+    x0 : int
+        Global index of the first plane held (a rank's x-slab; 0 for the whole grid).
     """
 
     psi_1: np.ndarray
     psi_2: np.ndarray | None
     box_size: float
+    x0: int = 0
 
     def __post_init__(self):
         self.psi_1.flags.writeable = False
@@ -64,7 +68,12 @@ class Displacements:
 
     @property
     def n(self):
-        """Grid points per side."""
+        """Grid points per side (of the whole grid)."""
+        return self.psi_1.shape[2]
+
+    @property
+    def planes(self):
+        """Number of grid planes held (n for the whole grid)."""
         return self.psi_1.shape[1]
 
     @property
@@ -76,10 +85,6 @@ class Displacements:
     def dtype(self):
         """Floating type of the fields."""
         return self.psi_1.dtype
-
-
-def _inverse(field_k, n, workers):
-    return _fft.inverse_real_3d(field_k, n, workers)
 
 
 def displacements(modes, order=2, workers=None, progress=None, overwrite_modes=False):
@@ -131,47 +136,53 @@ def displacements(modes, order=2, workers=None, progress=None, overwrite_modes=F
     if order not in (1, 2):
         raise ParameterError(f"lpt_order = {order!r}: allowed values are 1 and 2")
     n, kf = modes.n, modes.k_fundamental
+    layout = modes.layout if modes.layout is not None else Layout(n)
+    iy0 = modes.iy0
     tick = progress or (lambda stage: None)
     dk = modes.delta_k
     rdt = np.float32 if dk.dtype == np.complex64 else np.float64
     scratch = np.empty_like(dk)
+    real_shape = layout.real_shape
+
+    def _inverse(field_k, n, workers):
+        return layout.inverse(field_k, workers)
 
     psi_2 = None
     if order == 2:
         # phi_1,ij = IFFT[k_i k_j delta_k / k^2]; S = sum_{i>j} phi_ii phi_jj - phi_ij^2.
         diag = []
         for d in range(3):
-            _kernels._derivative_modes(dk, n, 0, kf, d, d, scratch)
+            _kernels._derivative_modes(dk, n, 0, iy0, kf, d, d, scratch)
             diag.append(_inverse(scratch, n, workers))
             tick(f"phi_{d}{d}")
         source = diag[0]
         _kernels._second_order_source_diag(diag[0], diag[1], diag[2], source)  # elementwise, in place
         del diag
         for d1, d2 in ((0, 1), (0, 2), (1, 2)):
-            _kernels._derivative_modes(dk, n, 0, kf, d1, d2, scratch)
+            _kernels._derivative_modes(dk, n, 0, iy0, kf, d1, d2, scratch)
             _kernels._subtract_square(source, _inverse(scratch, n, workers))
             tick(f"phi_{d1}{d2}")
-        source_k = _fft.forward_real_3d(source, workers)
+        source_k = layout.forward(source, workers)
         del source
         tick("source")
-        psi_2 = np.empty((3, n, n, n), dtype=rdt)
+        psi_2 = np.empty((3, *real_shape), dtype=rdt)
         for d in range(3):
             # psi_2(k) = -i k_d S_k / k^2: the kernel gives +i k_d/k^2, so negate.
-            _kernels._derivative_modes(source_k, n, 0, kf, d, -1, scratch)
+            _kernels._derivative_modes(source_k, n, 0, iy0, kf, d, -1, scratch)
             np.negative(scratch, out=scratch)
             psi_2[d] = _inverse(scratch, n, workers)
             tick(f"psi_2[{d}]")
         del source_k
 
-    psi_1 = np.empty((3, n, n, n), dtype=rdt)
+    psi_1 = np.empty((3, *real_shape), dtype=rdt)
     for d in range(3):
         target = scratch
         if d == 2 and overwrite_modes:
             del scratch
             dk.flags.writeable = True  # the caller handed the modes over as scratch
             target = dk
-        _kernels._derivative_modes(dk, n, 0, kf, d, -1, target)
+        _kernels._derivative_modes(dk, n, 0, iy0, kf, d, -1, target)
         psi_1[d] = _inverse(target, n, workers)
         del target
         tick(f"psi_1[{d}]")
-    return Displacements(psi_1=psi_1, psi_2=psi_2, box_size=modes.box_size)
+    return Displacements(psi_1=psi_1, psi_2=psi_2, box_size=modes.box_size, x0=layout.x0)

@@ -145,7 +145,8 @@ def slabs(growth, disp, dtype=np.float32, planes_per_slab=None):
     Yields
     ------
     row0 : int
-        First particle row of the slab (particle (i n + j) n + k is row (i n + j) n + k).
+        First row of the slab, counted from the first plane held (the global row of
+        particle (i, j, k) is (i n + j) n + k; add disp.x0 n^2 for a rank's slab).
     position, velocity : ndarray, shape (rows, 3)
         As in :func:`at`; the buffers are reused between slabs (copy them to keep them).
     plane_stats : ndarray, shape (planes, 6)
@@ -160,11 +161,12 @@ def slabs(growth, disp, dtype=np.float32, planes_per_slab=None):
     psi2 = _psi2_or_empty(disp)
     pos = np.empty((per * n * n, 3), dtype=dtype)
     vel = np.empty((per * n * n, 3), dtype=dtype)
-    for i0 in range(0, n, per):
-        i1 = min(n, i0 + per)
+    for i0 in range(0, disp.planes, per):
+        i1 = min(disp.planes, i0 + per)
         rows = (i1 - i0) * n * n
         stats = np.empty((i1 - i0, 6))
-        _kernels._particle_slab(disp.psi_1, psi2, i0, i1, c, disp.box_size, pos[:rows], vel[:rows], stats)
+        _kernels._particle_slab(disp.psi_1, psi2, i0, i1, disp.x0, c, disp.box_size, pos[:rows], vel[:rows],
+                                stats)
         yield i0 * n * n, pos[:rows], vel[:rows], stats
 
 
@@ -197,7 +199,9 @@ def at(growth, disp, omega_m, dtype=np.float32, write_ids=True):
     pos = np.empty((n**3, 3), dtype=dtype)
     vel = np.empty((n**3, 3), dtype=dtype)
     stats = np.empty((n, 6))
-    _kernels._particle_slab(disp.psi_1, _psi2_or_empty(disp), 0, n, _coefficients(growth, disp), box,
+    if disp.planes != n:
+        raise ParameterError("particles.at needs the whole grid; stream a rank's slab with particles.slabs")
+    _kernels._particle_slab(disp.psi_1, _psi2_or_empty(disp), 0, n, 0, _coefficients(growth, disp), box,
                             pos, vel, stats)
     ids = np.arange(n**3, dtype=np.uint64) if write_ids else None
     return ParticleSet(position=pos, velocity=vel, id=ids, mass=particle_mass(omega_m, box, n),

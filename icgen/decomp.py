@@ -1,0 +1,154 @@
+"""Slab decomposition of the grid among MPI ranks (or one process), and the transposes.
+
+An n^3 grid is split into contiguous slabs of planes, as evenly as possible
+(the first n mod R ranks get one plane more):
+
+* real-space fields: rank r holds planes x0_r <= i < x1_r of axis 0, shape (nx_r, n, n);
+* half spectra: rank r holds planes y0_r <= j < y1_r of axis 1, shape (n, ny_r, n//2 + 1).
+
+The inverse FFT does the axis-0 pass on the y-slabs (every kx is local), transposes
+to x-slabs with one all-to-all, and does the axis-1 and axis-2 passes there; the
+forward FFT is the reverse. Each one-dimensional transform sees exactly the data a
+serial run's does, in the same order (:mod:`icgen._fft`), so every rank count
+gives bit-identical fields. Per rank per transform, the all-to-all moves
+(R - 1)/R of the rank's block, 8 n^3 / R bytes (complex64) in total per rank, and
+needs one receive (or send) buffer of the same size.
+
+With ``comm=None`` (or one rank) the layout is the whole grid and no communication
+happens.
+"""
+
+from dataclasses import dataclass
+from functools import cached_property
+
+import numpy as np
+
+from . import _fft
+from .errors import ParameterError
+
+__all__ = ["Layout", "split"]
+
+
+def split(n, parts):
+    """Bounds (start, stop) of ``parts`` contiguous, nearly equal pieces of range(n)."""
+    base, extra = divmod(n, parts)
+    bounds, start = [], 0
+    for r in range(parts):
+        stop = start + base + (1 if r < extra else 0)
+        bounds.append((start, stop))
+        start = stop
+    return tuple(bounds)
+
+
+@dataclass(frozen=True, eq=False)
+class Layout:
+    """Which slab of an n^3 grid this process holds, and the FFTs between layouts.
+
+    Parameters
+    ----------
+    n : int
+        Grid points per side.
+    comm : mpi4py.MPI.Comm or None
+        Communicator of the ranks sharing the grid; None for a serial run.
+    """
+
+    n: int
+    comm: object = None
+
+    def __post_init__(self):
+        if self.size > self.n:
+            raise ParameterError(f"{self.size} ranks for a grid of {self.n} planes: need at most one rank "
+                                 f"per plane (particles_per_side >= number of ranks)")
+
+    @cached_property
+    def size(self):
+        """Number of ranks."""
+        return 1 if self.comm is None else self.comm.Get_size()
+
+    @cached_property
+    def rank(self):
+        """This process's rank."""
+        return 0 if self.comm is None else self.comm.Get_rank()
+
+    @property
+    def distributed(self):
+        """True when more than one rank shares the grid."""
+        return self.size > 1
+
+    @cached_property
+    def bounds(self):
+        """Plane bounds (start, stop) of every rank (the same split for x and y slabs)."""
+        return split(self.n, self.size)
+
+    @property
+    def x0(self):
+        """First real-space plane (axis 0) of this rank."""
+        return self.bounds[self.rank][0]
+
+    @property
+    def x1(self):
+        """One past the last real-space plane of this rank."""
+        return self.bounds[self.rank][1]
+
+    y0 = x0
+    y1 = x1
+
+    @property
+    def real_shape(self):
+        """Shape of this rank's real-space block."""
+        return (self.x1 - self.x0, self.n, self.n)
+
+    @property
+    def spec_shape(self):
+        """Shape of this rank's half-spectrum block (all kx, its ky planes, kz >= 0)."""
+        return (self.n, self.y1 - self.y0, self.n // 2 + 1)
+
+    # ---- transposes ----------------------------------------------------------
+    def _to_x_slabs(self, a):
+        """(n, ny_me, nzc) y-slab -> (nx_me, n, nzc) x-slab."""
+        n, nzc = self.n, self.n // 2 + 1
+        ny_me = self.y1 - self.y0
+        nx_me = self.x1 - self.x0
+        send_counts = [(x1 - x0) * ny_me * nzc for x0, x1 in self.bounds]
+        send_displs = [x0 * ny_me * nzc for x0, _ in self.bounds]
+        recv_counts = [nx_me * (y1 - y0) * nzc for y0, y1 in self.bounds]
+        recv_displs = list(np.cumsum([0] + recv_counts[:-1]))
+        recv = np.empty(sum(recv_counts), dtype=a.dtype)
+        self.comm.Alltoallv([a, (send_counts, send_displs)], [recv, (recv_counts, recv_displs)])
+        out = np.empty((nx_me, n, nzc), dtype=a.dtype)
+        for (y0, y1), off, cnt in zip(self.bounds, recv_displs, recv_counts):
+            out[:, y0:y1, :] = recv[off:off + cnt].reshape(nx_me, y1 - y0, nzc)
+        return out
+
+    def _to_y_slabs(self, b):
+        """(nx_me, n, nzc) x-slab -> (n, ny_me, nzc) y-slab."""
+        n, nzc = self.n, self.n // 2 + 1
+        nx_me = self.x1 - self.x0
+        ny_me = self.y1 - self.y0
+        send = np.concatenate([np.ascontiguousarray(b[:, y0:y1, :]).ravel() for y0, y1 in self.bounds])
+        send_counts = [nx_me * (y1 - y0) * nzc for y0, y1 in self.bounds]
+        send_displs = list(np.cumsum([0] + send_counts[:-1]))
+        recv_counts = [(x1 - x0) * ny_me * nzc for x0, x1 in self.bounds]
+        recv_displs = [x0 * ny_me * nzc for x0, _ in self.bounds]
+        out = np.empty((n, ny_me, nzc), dtype=b.dtype)
+        self.comm.Alltoallv([send, (send_counts, send_displs)], [out, (recv_counts, recv_displs)])
+        return out
+
+    # ---- transforms -------------------------------------------------------------
+    def inverse(self, field_k, workers=None):
+        """Real x-slab from this rank's half-spectrum y-slab (``field_k`` is destroyed)."""
+        if not self.distributed:
+            return _fft.inverse_real_3d(field_k, self.n, workers)
+        x = _fft.inverse_pass_x(field_k, workers)
+        b = self._to_x_slabs(x)
+        del x
+        return _fft.inverse_pass_yz(b, self.n, workers)
+
+    def forward(self, field, workers=None):
+        """Half-spectrum y-slab of this rank from its real x-slab (``field`` is kept)."""
+        if not self.distributed:
+            return _fft.forward_real_3d(field, workers)
+        b = _fft.forward_pass_zy(field, workers)
+        a = self._to_y_slabs(b)
+        del b
+        return _fft.forward_pass_x(a, self.n, workers)
