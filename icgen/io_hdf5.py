@@ -18,6 +18,8 @@ values as little-endian bytes in row-major order):
 import json
 import zlib
 
+from pathlib import Path
+
 import h5py
 import numpy as np
 
@@ -25,7 +27,7 @@ from . import __version__
 from .io_output import atomic_path
 
 __all__ = ["FORMAT", "FORMAT_VERSION", "REQUIRED_ATTRS", "write_particles", "write_particles_streamed",
-           "read_particles", "checksum", "verify_file"]
+           "read_particles", "checksum", "verify_file", "write_particles_parts", "part_path"]
 
 #: Root attributes every particle file carries.
 REQUIRED_ATTRS = ("format", "format_version", "created_by", "parameters", "cosmology", "box_size",
@@ -67,6 +69,20 @@ def verify_file(path, full=False):
         if missing:
             problems.append("missing root attributes: " + ", ".join(missing))
         n_part = int(f.attrs.get("n_particles", -1))
+        if "part_files" in f.attrs:  # a distributed file: every part must be there and complete
+            folder = Path(path).resolve().parent
+            for name in json.loads(f.attrs["part_files"]):
+                part = folder / name
+                if not part.exists():
+                    problems.append(f"missing part file {part.name}")
+                    continue
+                try:
+                    with h5py.File(part, "r") as pf:
+                        rows = int(pf.attrs["part_rows"])
+                        if pf["particles/position"].shape != (rows, 3):
+                            problems.append(f"part file {part.name} is incomplete")
+                except (OSError, KeyError) as exc:
+                    problems.append(f"part file {part.name} is unreadable or truncated: {exc}")
         grp = f.get("particles")
         if grp is None:
             return problems + ["missing group /particles"]
@@ -82,8 +98,12 @@ def verify_file(path, full=False):
                 problems.append(f"/particles/{name} has no checksum_crc32")
             elif full:
                 crc, rows = 0, max(1, (1 << 22) // max(1, int(np.prod(ds.shape[1:]))))
-                for r0 in range(0, ds.shape[0], rows):
-                    crc = checksum(ds[r0:r0 + rows], crc)
+                try:
+                    for r0 in range(0, ds.shape[0], rows):
+                        crc = checksum(ds[r0:r0 + rows], crc)
+                except OSError as exc:
+                    problems.append(f"/particles/{name}: cannot be read completely ({exc})")
+                    continue
                 if crc != int(ds.attrs["checksum_crc32"]):
                     problems.append(f"/particles/{name}: checksum mismatch (stored "
                                     f"{int(ds.attrs['checksum_crc32']):08x}, computed {crc:08x})")
@@ -220,3 +240,128 @@ def read_particles(path):
         attrs = {k: (v.decode() if isinstance(v, bytes) else v) for k, v in f.attrs.items()}
         data = {k: f["particles"][k][...] for k in f["particles"]}
     return attrs, data
+
+
+def part_path(path, rank, size):
+    """File name of rank ``rank``'s part of a distributed particle file ``path``."""
+    path = Path(path)
+    return path.with_name(f"{path.stem}.part{rank:04d}-of-{size:04d}{path.suffix}")
+
+
+def write_particles_parts(path, growth, disp, layout, mass, dtype, write_ids, parameters_toml, cosmology,
+                          seed, fixed_amplitude=False, paired=False, overwrite=False, extra_attrs=None):
+    """Distributed output: every rank writes its slab to a part file; rank 0 writes ``path``,
+    whose /particles/* are HDF5 virtual datasets over the parts (same layout as a serial file).
+
+    All files are written under temporary names; the parts are renamed once every
+    rank has written and verified its part, the master last. The master stores the
+    CRC-32 of each whole dataset (combined from the parts), so :func:`verify_file`
+    with ``full=True`` on the master detects a missing or truncated part (a virtual
+    dataset reads missing data as fill values). Collective: call on every rank.
+
+    Returns
+    -------
+    dict
+        Displacement and velocity statistics (on rank 0; None elsewhere).
+    """
+    from . import particles
+    from .io_output import check_output_path
+    from .parallel import agree, crc32_combine
+
+    comm, rank, size, n = layout.comm, layout.rank, layout.size, disp.n
+    path = Path(path)
+    mine = part_path(path, rank, size)
+    error = None
+    try:
+        check_output_path(mine, overwrite)
+        if rank == 0:
+            check_output_path(path, overwrite)
+    except BaseException as exc:  # noqa: BLE001 - reported to every rank below
+        error = exc
+    agree(comm, error)
+
+    attrs = _root_attrs(growth, disp.box_size, n, mass, disp.order, parameters_toml, cosmology, seed,
+                        fixed_amplitude, paired, extra_attrs)
+    rows = disp.planes * n * n
+    row_start = disp.x0 * n * n
+    tmp_cm = atomic_path(mine, overwrite)
+    error, crc, planes = None, {"position": 0, "velocity": 0, "id": 0}, []
+    try:
+        tmp = tmp_cm.__enter__()
+        with h5py.File(tmp, "w") as f:
+            _write_attrs(f, {**attrs, "part_rank": rank, "part_count": size, "part_first_row": row_start,
+                             "part_rows": rows})
+            grp = f.create_group("particles")
+            pos = grp.create_dataset("position", shape=(rows, 3), dtype=dtype)
+            vel = grp.create_dataset("velocity", shape=(rows, 3), dtype=dtype)
+            ids = grp.create_dataset("id", shape=(rows,), dtype=np.uint64) if write_ids else None
+            for row0, p, v, stats in particles.slabs(growth, disp, dtype):
+                planes.append(stats)
+                m = p.shape[0]
+                pos[row0:row0 + m] = p
+                vel[row0:row0 + m] = v
+                crc["position"] = checksum(p, crc["position"])
+                crc["velocity"] = checksum(v, crc["velocity"])
+                if ids is not None:
+                    block = np.arange(row_start + row0, row_start + row0 + m, dtype=np.uint64)
+                    ids[row0:row0 + m] = block
+                    crc["id"] = checksum(block, crc["id"])
+            for ds, name in ((pos, "position"), (vel, "velocity"), (ids, "id")):
+                if ds is not None:
+                    ds.attrs["units"] = UNITS[name]
+                    ds.attrs["checksum_crc32"] = np.uint32(crc[name])
+        with h5py.File(tmp, "r") as f:  # read back before anything is renamed
+            for name in ("position", "velocity") + (("id",) if write_ids else ()):
+                if int(f["particles"][name].attrs["checksum_crc32"]) != crc[name]:
+                    raise OSError(f"{mine}: checksum of {name} did not read back")
+    except BaseException as exc:  # noqa: BLE001
+        error = exc
+    try:
+        agree(comm, error)
+    except BaseException:
+        tmp_cm.__exit__(*_exc_info())
+        raise
+
+    # Everyone wrote a verified part: gather sizes and checksums, rename the parts, write the master.
+    info = comm.gather((rank, rows, dict(crc), np.concatenate(planes)), root=0)
+    tmp_cm.__exit__(None, None, None)  # rename this rank's part
+    error, summary = None, None
+    if rank == 0:
+        try:
+            info.sort(key=lambda t: t[0])
+            total = {k: 0 for k in crc}
+            itemsize = {"position": 3 * np.dtype(dtype).itemsize, "velocity": 3 * np.dtype(dtype).itemsize,
+                        "id": 8}
+            for _, r_rows, r_crc, _ in info:
+                for k in total:
+                    total[k] = crc32_combine(total[k], r_crc[k], r_rows * itemsize[k])
+            with atomic_path(path, overwrite) as tmp:
+                with h5py.File(tmp, "w") as f:
+                    _write_attrs(f, {**attrs, "part_files": json.dumps(
+                        [part_path(path, r, size).name for r in range(size)])})
+                    grp = f.create_group("particles")
+                    for name in ("position", "velocity") + (("id",) if write_ids else ()):
+                        shape = (n**3, 3) if name != "id" else (n**3,)
+                        vdt = np.uint64 if name == "id" else dtype
+                        vl = h5py.VirtualLayout(shape=shape, dtype=vdt)
+                        start = 0
+                        for r, r_rows, _, _ in info:
+                            src_shape = (r_rows, 3) if name != "id" else (r_rows,)
+                            vs = h5py.VirtualSource(part_path(path, r, size).name, f"particles/{name}",
+                                                    shape=src_shape)
+                            vl[start:start + r_rows] = vs
+                            start += r_rows
+                        ds = grp.create_virtual_dataset(name, vl, fillvalue=np.nan if name != "id" else 0)
+                        ds.attrs["units"] = UNITS[name]
+                        ds.attrs["checksum_crc32"] = np.uint32(total[name])
+            summary = particles.summarize(np.concatenate([t[3] for t in info]))
+        except BaseException as exc:  # noqa: BLE001
+            error = exc
+    agree(comm, error)
+    return summary
+
+
+def _exc_info():
+    import sys
+
+    return sys.exc_info()

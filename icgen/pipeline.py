@@ -67,7 +67,7 @@ def start_scale_factor(params, pk, bg, setup):
 N_PROGRESS_STEPS = {1: 4, 2: 14}
 
 
-def displacement_fields(pk, bg, setup, workers=None, progress=None):
+def displacement_fields(pk, bg, setup, workers=None, progress=None, layout=None):
     """Linear modes -> LPT displacement fields at D1 = 1, in the setup's precision.
 
     Parameters
@@ -80,14 +80,19 @@ def displacement_fields(pk, bg, setup, workers=None, progress=None):
         FFT threads (the output does not depend on it).
     progress : callable, optional
         Called with a stage name at each of N_PROGRESS_STEPS[order] steps.
+    layout : icgen.decomp.Layout, optional
+        This rank's slabs in a distributed run (default: the whole grid). The fields
+        are bit-identical to the serial ones for any number of ranks.
 
     Returns
     -------
     Displacements
+        This rank's x-slab of the fields (the whole grid in a serial run).
     """
     tick = progress or (lambda stage: None)
     modes = field.linear_density_modes(lambda k: pk.P(k, 0.0), setup.seed, setup.n, setup.box_size,
-                                       setup.fixed_amplitude, setup.paired, dtype=setup.dtype)
+                                       setup.fixed_amplitude, setup.paired, dtype=setup.dtype,
+                                       layout=layout)
     tick("modes")
     # The modes are used by nothing else: let the last transform reuse their memory.
     return lpt.displacements(modes, setup.lpt_order, workers=workers, progress=tick, overwrite_modes=True)

@@ -7,12 +7,14 @@ ends with one line on stderr and exit status 2; ``--debug`` shows the traceback.
 
 import argparse
 import importlib
+import os
 import pkgutil
 import signal
 import sys
 
 from .. import __version__
 from ..errors import InputError
+from ..parallel import launched_rank
 
 __all__ = ["main", "build_parser"]
 
@@ -66,6 +68,8 @@ def main(argv=None):
         parser.print_help()
         return 2
     previous = signal.signal(signal.SIGTERM, _terminate)  # SIGTERM unwinds like Ctrl-C
+    if launched_rank() != 0:  # under MPI only rank 0 speaks (every rank gets the same exit status)
+        sys.stdout = sys.stderr = open(os.devnull, "w")  # noqa: SIM115 - lives as long as the process
     try:
         return int(args._run(args) or 0)
     except InputError as exc:

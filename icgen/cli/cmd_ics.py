@@ -6,7 +6,7 @@ import os
 import time
 import warnings
 
-from .. import background, io_hdf5, io_output, particles, pipeline
+from .. import background, decomp, io_hdf5, io_output, parallel, particles, pipeline
 from .common import add_params_arguments, load_params, progress_bar, warn_line
 
 NAME = "ics"
@@ -22,18 +22,19 @@ def add_arguments(p):
     p.add_argument("--quiet", action="store_true", help="no progress bar")
 
 
-def prepare(params):
+def prepare(params, quiet=False):
     """Everything checked and set up before heavy work: (bg, pk, setup, a_start, advice)."""
     from .. import io_input, spectrum
 
     setup = pipeline.grid_setup(params)
     bg = background.solve(params.cosmology)
-    pk = io_input.spectrum_from_parameters(params, bg)
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
+        pk = io_input.spectrum_from_parameters(params, bg)
         pk.warn_if_extrapolating(*spectrum.required_k_range(setup.box_size, setup.n))
-    for w in caught:
-        warn_line(str(w.message))
+    if not quiet:
+        for w in caught:
+            warn_line(str(w.message))
     a_start, advice = pipeline.start_scale_factor(params, pk, bg, setup)
     return bg, pk, setup, a_start, advice
 
@@ -41,18 +42,34 @@ def prepare(params):
 def generate(params, out, overwrite=False, workers=None, quiet=False):
     """Run the initial-condition pipeline and stream the particles into ``out``.
 
+    Under MPI (``mpiexec -n R``) every rank computes its slab and writes a part
+    file; ``out`` is then a master file of virtual datasets over the parts
+    (:func:`icgen.io_hdf5.write_particles_parts`). Collective in that case.
+
     Returns
     -------
     dict
-        Summary figures (see :func:`summary`).
+        Summary figures (see :func:`summary`); on ranks other than 0 the statistics are None.
     """
-    io_output.check_output_path(out, overwrite)
+    comm = parallel.world()
     t0 = time.perf_counter()
-    bg, pk, setup, a_start, advice = prepare(params)
+    error = None
+    try:
+        if comm is None or comm.Get_rank() == 0:
+            io_output.check_output_path(out, overwrite)
+        bg, pk, setup, a_start, advice = prepare(params, quiet=comm is not None and comm.Get_rank() != 0)
+        layout = decomp.Layout(setup.n, comm)
+    except BaseException as exc:  # noqa: BLE001 - every rank must learn of it (parallel.agree)
+        if comm is None:
+            raise
+        error = exc
+    parallel.agree(comm, error)
     cosmo = params.cosmology
     steps = pipeline.N_PROGRESS_STEPS[setup.lpt_order] + 1
-    with progress_bar(steps, f"ics {setup.n}^3", disable=quiet) as bar:
-        disp = pipeline.displacement_fields(pk, bg, setup, workers, progress=lambda stage: bar.update(1))
+    with progress_bar(steps, f"ics {setup.n}^3" + (f" on {layout.size} ranks" if layout.distributed else ""),
+                      disable=quiet or layout.rank != 0) as bar:
+        disp = pipeline.displacement_fields(pk, bg, setup, workers, progress=lambda stage: bar.update(1),
+                                            layout=layout)
         growth = particles.StartGrowth.from_background(bg, a_start)
         mass = particles.particle_mass(cosmo.omega_m, setup.box_size, setup.n)
         extra = {}
@@ -64,12 +81,18 @@ def generate(params, out, overwrite=False, workers=None, quiet=False):
             extra["start_rule"] = json.dumps({"rule": "auto (common practice, see icgen.start)",
                                               **advice.limits, "z_start_1lpt": advice.z_start_1lpt,
                                               "z_start_2lpt": advice.z_start_2lpt})
-        stats = io_hdf5.write_particles_streamed(out, growth, disp, mass, setup.dtype, setup.write_ids,
-                                         params.to_toml(), cosmo, setup.seed, setup.fixed_amplitude,
-                                         setup.paired, overwrite, extra)
+        args = (growth, disp)
+        common = dict(parameters_toml=params.to_toml(), cosmology=cosmo, seed=setup.seed,
+                      fixed_amplitude=setup.fixed_amplitude, paired=setup.paired, overwrite=overwrite,
+                      extra_attrs=extra)
+        if layout.distributed:
+            stats = io_hdf5.write_particles_parts(out, *args, layout, mass, setup.dtype, setup.write_ids, **common)
+        else:
+            stats = io_hdf5.write_particles_streamed(out, *args, mass, setup.dtype, setup.write_ids, **common)
         bar.update(1)
-    info = {"out": str(out), "bg": bg, "pk": pk, "n": setup.n, "box_size": setup.box_size, "order": setup.lpt_order,
-            "mass": mass, "growth": growth, "disp": stats["displacement"], "vel": stats["velocity"],
+    info = {"out": str(out), "bg": bg, "pk": pk, "n": setup.n, "box_size": setup.box_size,
+            "order": setup.lpt_order, "mass": mass, "growth": growth, "ranks": layout.size,
+            "disp": stats["displacement"] if stats else None, "vel": stats["velocity"] if stats else None,
             "seconds": time.perf_counter() - t0}
     return info
 
@@ -89,11 +112,14 @@ def summary(info):
         f"  displacement   rms per component {d['rms']:.4g} Mpc/h = {d['rms'] / spacing:.3f} spacing; "
         f"max {d['max']:.4g} Mpc/h = {d['max'] / spacing:.3f} spacing; mean {d['mean']:.2e} Mpc/h",
         f"  velocity       rms per component {v['rms']:.4g} km/s, max {v['max']:.4g} km/s",
-        f"  time           {info['seconds']:.2f} s",
+        f"  time           {info['seconds']:.2f} s" + (f" on {info['ranks']} MPI ranks (one part file each)"
+                                                     if info.get("ranks", 1) > 1 else ""),
     ])
 
 
 def run(args):
     params = load_params(args)
-    print(summary(generate(params, args.out, args.overwrite, args.workers, args.quiet)))
+    info = generate(params, args.out, args.overwrite, args.workers, args.quiet)
+    if info["disp"] is not None:  # rank 0 (or a serial run) holds the statistics
+        print(summary(info))
     return 0
