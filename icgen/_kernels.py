@@ -150,6 +150,104 @@ def _derivative_modes(src, n, ix0, iy0, kf, d1, d2, out):
 
 
 @njit(cache=True, parallel=True)
+def _gradient_combo(src1, a1, src2, a2, n, ix0, iy0, kf, d, out):
+    """out = i k_d / k^2 (a1 src1 + a2 src2) on the block starting at mode (ix0, iy0, 0).
+
+    The displacement (or velocity) field of 2LPT in one transform: with psi_1(k) =
+    i k delta/k^2 and psi_2(k) = -i k S/k^2, c1 psi_1 + c2 psi_2 is this with
+    a1 = c1, a2 = -c2. Nyquist-plane modes and k = 0 get zero. kf = 2 pi / L.
+    """
+    half = n // 2
+    for i in prange(out.shape[0]):
+        ix = ix0 + i
+        kx = ix if ix < half else ix - n
+        for j in range(out.shape[1]):
+            iy = iy0 + j
+            ky = iy if iy < half else iy - n
+            for l in range(out.shape[2]):
+                kz = l
+                m2 = kx * kx + ky * ky + kz * kz
+                if kx == -half or ky == -half or kz == half or m2 == 0:
+                    out[i, j, l] = 0.0
+                    continue
+                kd = kx if d == 0 else (ky if d == 1 else kz)
+                v = a1 * src1[i, j, l] + a2 * src2[i, j, l]
+                out[i, j, l] = v * complex(0.0, kd / (kf * m2))
+
+
+@njit(cache=True, parallel=True)
+def _position_slab(fx, fy, fz, scale, i0, i1, gx, box_size, out, plane_stats):
+    """out = (q + scale f_d) mod L for local planes i0 <= i < i1 (global plane gx + i).
+
+    fx, fy, fz: the three components, each (planes, n, n).
+    Row ((i - i0) n + j) n + k of out is the particle at grid index (gx + i, j, k).
+    plane_stats[i - i0] = sum, sum of squares and max |.| of the displacement
+    components scale field[d] (float64, fixed order within the plane).
+    """
+    n = fx.shape[2]
+    spacing = box_size / n
+    for i in prange(i0, i1):
+        s = 0.0
+        s2 = 0.0
+        mx = 0.0
+        qx = (gx + i) * spacing
+        for j in range(n):
+            qy = j * spacing
+            row = ((i - i0) * n + j) * n
+            for k in range(n):
+                p = row + k
+                for d in range(3):
+                    if d == 0:
+                        disp = scale * np.float64(fx[i, j, k])
+                        q = qx
+                    elif d == 1:
+                        disp = scale * np.float64(fy[i, j, k])
+                        q = qy
+                    else:
+                        disp = scale * np.float64(fz[i, j, k])
+                        q = k * spacing
+                    out[p, d] = _wrap(q + disp, box_size)
+                    if out[p, d] >= box_size:
+                        out[p, d] = 0.0
+                    s += disp
+                    s2 += disp * disp
+                    mx = max(mx, abs(disp))
+        r = i - i0
+        plane_stats[r, 0] = s
+        plane_stats[r, 1] = s2
+        plane_stats[r, 2] = mx
+
+
+@njit(cache=True, parallel=True)
+def _velocity_slab(fx, fy, fz, scale, i0, i1, out, plane_stats):
+    """out = scale f_d for local planes i0 <= i < i1, with per-plane sums as in _position_slab."""
+    n = fx.shape[2]
+    for i in prange(i0, i1):
+        s = 0.0
+        s2 = 0.0
+        mx = 0.0
+        for j in range(n):
+            row = ((i - i0) * n + j) * n
+            for k in range(n):
+                p = row + k
+                for d in range(3):
+                    if d == 0:
+                        v = scale * np.float64(fx[i, j, k])
+                    elif d == 1:
+                        v = scale * np.float64(fy[i, j, k])
+                    else:
+                        v = scale * np.float64(fz[i, j, k])
+                    out[p, d] = v
+                    s += v
+                    s2 += v * v
+                    mx = max(mx, abs(v))
+        r = i - i0
+        plane_stats[r, 0] = s
+        plane_stats[r, 1] = s2
+        plane_stats[r, 2] = mx
+
+
+@njit(cache=True, parallel=True)
 def _second_order_source_diag(p00, p11, p22, out):
     """out = p00 p11 + p00 p22 + p11 p22 (diagonal part of the 2LPT source)."""
     a = p00.ravel()

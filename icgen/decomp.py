@@ -11,8 +11,9 @@ to x-slabs with one all-to-all, and does the axis-1 and axis-2 passes there; the
 forward FFT is the reverse. Each one-dimensional transform sees exactly the data a
 serial run's does, in the same order (:mod:`icgen._fft`), so every rank count
 gives bit-identical fields. Per rank per transform, the all-to-all moves
-(R - 1)/R of the rank's block, 8 n^3 / R bytes (complex64) in total per rank, and
-needs one receive (or send) buffer of the same size.
+(R - 1)/R of the rank's block, about 4 n^3 / R bytes (complex64 half spectrum), straight
+between the source and target arrays (MPI vector datatypes describe the strided
+blocks, so no packing buffer is needed).
 
 With ``comm=None`` (or one rank) the layout is the whole grid and no communication
 happens.
@@ -104,34 +105,46 @@ class Layout:
         return (self.n, self.y1 - self.y0, self.n // 2 + 1)
 
     # ---- transposes ----------------------------------------------------------
+    def _mpi_type(self, dtype):
+        from mpi4py import MPI
+
+        return MPI.C_FLOAT_COMPLEX if dtype == np.complex64 else MPI.C_DOUBLE_COMPLEX
+
+    def _strided(self, base, rows, y0, y1):
+        """Datatype of the block [:, y0:y1, :] of a (rows, n, n//2 + 1) array (one MPI vector)."""
+        nzc = self.n // 2 + 1
+        t = base.Create_vector(rows, (y1 - y0) * nzc, self.n * nzc)
+        t.Commit()
+        return t
+
     def _to_x_slabs(self, a):
-        """(n, ny_me, nzc) y-slab -> (nx_me, n, nzc) x-slab."""
+        """(n, ny_me, nzc) y-slab -> (nx_me, n, nzc) x-slab, received in place (no extra buffer)."""
         n, nzc = self.n, self.n // 2 + 1
-        ny_me = self.y1 - self.y0
-        nx_me = self.x1 - self.x0
-        send_counts = [(x1 - x0) * ny_me * nzc for x0, x1 in self.bounds]
-        send_displs = [x0 * ny_me * nzc for x0, _ in self.bounds]
-        recv_counts = [nx_me * (y1 - y0) * nzc for y0, y1 in self.bounds]
-        recv_displs = list(np.cumsum([0] + recv_counts[:-1]))
-        recv = np.empty(sum(recv_counts), dtype=a.dtype)
-        self.comm.Alltoallv([a, (send_counts, send_displs)], [recv, (recv_counts, recv_displs)])
+        ny_me, nx_me = self.y1 - self.y0, self.x1 - self.x0
+        base, size = self._mpi_type(a.dtype), a.dtype.itemsize
         out = np.empty((nx_me, n, nzc), dtype=a.dtype)
-        for (y0, y1), off, cnt in zip(self.bounds, recv_displs, recv_counts):
-            out[:, y0:y1, :] = recv[off:off + cnt].reshape(nx_me, y1 - y0, nzc)
+        recv_types = [self._strided(base, nx_me, y0, y1) for y0, y1 in self.bounds]
+        send = [a, [(x1 - x0) * ny_me * nzc for x0, x1 in self.bounds],
+                [x0 * ny_me * nzc * size for x0, _ in self.bounds], [base] * self.size]
+        recv = [out, [1] * self.size, [y0 * nzc * size for y0, _ in self.bounds], recv_types]
+        self.comm.Alltoallw(send, recv)
+        for t in recv_types:
+            t.Free()
         return out
 
     def _to_y_slabs(self, b):
-        """(nx_me, n, nzc) x-slab -> (n, ny_me, nzc) y-slab."""
+        """(nx_me, n, nzc) x-slab -> (n, ny_me, nzc) y-slab, sent in place (no packing buffer)."""
         n, nzc = self.n, self.n // 2 + 1
-        nx_me = self.x1 - self.x0
-        ny_me = self.y1 - self.y0
-        send = np.concatenate([np.ascontiguousarray(b[:, y0:y1, :]).ravel() for y0, y1 in self.bounds])
-        send_counts = [nx_me * (y1 - y0) * nzc for y0, y1 in self.bounds]
-        send_displs = list(np.cumsum([0] + send_counts[:-1]))
-        recv_counts = [(x1 - x0) * ny_me * nzc for x0, x1 in self.bounds]
-        recv_displs = [x0 * ny_me * nzc for x0, _ in self.bounds]
+        ny_me, nx_me = self.y1 - self.y0, self.x1 - self.x0
+        base, size = self._mpi_type(b.dtype), b.dtype.itemsize
         out = np.empty((n, ny_me, nzc), dtype=b.dtype)
-        self.comm.Alltoallv([send, (send_counts, send_displs)], [out, (recv_counts, recv_displs)])
+        send_types = [self._strided(base, nx_me, y0, y1) for y0, y1 in self.bounds]
+        send = [b, [1] * self.size, [y0 * nzc * size for y0, _ in self.bounds], send_types]
+        recv = [out, [(x1 - x0) * ny_me * nzc for x0, x1 in self.bounds],
+                [x0 * ny_me * nzc * size for x0, _ in self.bounds], [base] * self.size]
+        self.comm.Alltoallw(send, recv)
+        for t in send_types:
+            t.Free()
         return out
 
     # ---- transforms -------------------------------------------------------------

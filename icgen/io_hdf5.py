@@ -184,54 +184,76 @@ def write_particles(path, parts, parameters_toml, cosmology, seed, fixed_amplitu
     return path
 
 
-def write_particles_streamed(path, growth, disp, mass, dtype, write_ids, parameters_toml, cosmology,
-                             seed, fixed_amplitude=False, paired=False, overwrite=False,
-                             extra_attrs=None, progress=None):
-    """Compute and write the particles slab by slab (peak memory: the fields plus one slab).
+def _stream_fields(grp, fields, x0, n, box_size, dtype, write_ids, row_start):
+    """Create /particles datasets in ``grp`` for this process's rows and fill them from ``fields``.
 
-    Same file as :func:`write_particles` for the same inputs (both use
-    :func:`icgen.particles.slabs`' kernel). ``progress`` is called with the fraction done.
+    Returns the per-dataset CRC-32 and the per-plane statistics (planes, 6).
+    """
+    from . import particles  # the numerical core; imported here to keep this module light
+
+    crc = {"position": 0, "velocity": 0, "id": 0}
+    stats = {}
+    rows_total = None
+    for kind, field, scale in fields:
+        planes = field[0].shape[0]
+        rows_total = planes * n * n
+        ds = grp.create_dataset(kind, shape=(rows_total, 3), dtype=dtype)
+        ds.attrs["units"] = UNITS[kind]
+        blocks = []
+        for row0, block, st in particles.field_slabs(kind, field, scale, x0, box_size, dtype):
+            ds[row0:row0 + block.shape[0]] = block
+            crc[kind] = checksum(block, crc[kind])
+            blocks.append(st)
+        stats[kind] = np.concatenate(blocks)
+        del field  # let the generator free it before it computes the next field
+        ds.attrs["checksum_crc32"] = np.uint32(crc[kind])
+    if write_ids:
+        ids = grp.create_dataset("id", shape=(rows_total,), dtype=np.uint64)
+        ids.attrs["units"] = UNITS["id"]
+        step = 1 << 22
+        for r0 in range(0, rows_total, step):
+            block = np.arange(row_start + r0, row_start + min(rows_total, r0 + step), dtype=np.uint64)
+            ids[r0:r0 + block.size] = block
+            crc["id"] = checksum(block, crc["id"])
+        ids.attrs["checksum_crc32"] = np.uint32(crc["id"])
+    return crc, np.concatenate([stats["position"], stats["velocity"]], axis=1), rows_total
+
+
+def write_particles_streamed(path, growth, fields, n, box_size, order, mass, dtype, write_ids,
+                             parameters_toml, cosmology, seed, fixed_amplitude=False, paired=False,
+                             overwrite=False, extra_attrs=None):
+    """Write the particles field by field and slab by slab (peak memory: three fields).
+
+    Parameters
+    ----------
+    path : str or Path
+    growth : StartGrowth
+    fields : iterable of (kind, field, scale)
+        From :func:`icgen.lpt.output_fields` (the whole grid).
+    n : int
+    box_size : float
+    order : int
+    mass : float
+        Particle mass in Msun/h.
+    dtype, write_ids, parameters_toml, cosmology, seed, fixed_amplitude, paired, overwrite, extra_attrs
+        As in :func:`write_particles`.
 
     Returns
     -------
     dict
         Displacement and velocity statistics (:func:`icgen.particles.summarize`).
     """
-    from . import particles  # the numerical core; imported here to keep this module light
+    from . import particles
 
-    n = disp.n
-    attrs = _root_attrs(growth, disp.box_size, n, mass, disp.order, parameters_toml, cosmology, seed,
+    attrs = _root_attrs(growth, box_size, n, mass, order, parameters_toml, cosmology, seed,
                         fixed_amplitude, paired, extra_attrs)
     with atomic_path(path, overwrite) as tmp:
         with h5py.File(tmp, "w") as f:
             _write_attrs(f, attrs)
-            grp = f.create_group("particles")
-            pos = grp.create_dataset("position", shape=(n**3, 3), dtype=dtype)
-            vel = grp.create_dataset("velocity", shape=(n**3, 3), dtype=dtype)
-            ids = grp.create_dataset("id", shape=(n**3,), dtype=np.uint64) if write_ids else None
-            for ds, name in ((pos, "position"), (vel, "velocity"), (ids, "id")):
-                if ds is not None:
-                    ds.attrs["units"] = UNITS[name]
-            planes = []
-            crc = {"position": 0, "velocity": 0, "id": 0}
-            for row0, p, v, stats in particles.slabs(growth, disp, dtype):
-                planes.append(stats)
-                rows = p.shape[0]
-                pos[row0:row0 + rows] = p
-                vel[row0:row0 + rows] = v
-                crc["position"] = checksum(p, crc["position"])
-                crc["velocity"] = checksum(v, crc["velocity"])
-                if ids is not None:
-                    block = np.arange(row0, row0 + rows, dtype=np.uint64)
-                    ids[row0:row0 + rows] = block
-                    crc["id"] = checksum(block, crc["id"])
-                if progress:
-                    progress((row0 + rows) / n**3)
-            for ds, name in ((pos, "position"), (vel, "velocity"), (ids, "id")):
-                if ds is not None:
-                    ds.attrs["checksum_crc32"] = np.uint32(crc[name])
+            _, planes, _ = _stream_fields(f.create_group("particles"), fields, 0, n, box_size, dtype,
+                                          write_ids, 0)
         _verify_or_raise(tmp, attrs)
-    return particles.summarize(np.concatenate(planes))
+    return particles.summarize(planes)
 
 
 def read_particles(path):
@@ -248,16 +270,17 @@ def part_path(path, rank, size):
     return path.with_name(f"{path.stem}.part{rank:04d}-of-{size:04d}{path.suffix}")
 
 
-def write_particles_parts(path, growth, disp, layout, mass, dtype, write_ids, parameters_toml, cosmology,
-                          seed, fixed_amplitude=False, paired=False, overwrite=False, extra_attrs=None):
+def write_particles_parts(path, growth, fields, layout, box_size, order, mass, dtype, write_ids,
+                          parameters_toml, cosmology, seed, fixed_amplitude=False, paired=False,
+                          overwrite=False, extra_attrs=None):
     """Distributed output: every rank writes its slab to a part file; rank 0 writes ``path``,
     whose /particles/* are HDF5 virtual datasets over the parts (same layout as a serial file).
 
     All files are written under temporary names; the parts are renamed once every
     rank has written and verified its part, the master last. The master stores the
     CRC-32 of each whole dataset (combined from the parts), so :func:`verify_file`
-    with ``full=True`` on the master detects a missing or truncated part (a virtual
-    dataset reads missing data as fill values). Collective: call on every rank.
+    with ``full=True`` on the master detects a missing or truncated part. Collective:
+    call on every rank with this rank's ``fields`` (:func:`icgen.lpt.output_fields`).
 
     Returns
     -------
@@ -268,7 +291,7 @@ def write_particles_parts(path, growth, disp, layout, mass, dtype, write_ids, pa
     from .io_output import check_output_path
     from .parallel import agree, crc32_combine
 
-    comm, rank, size, n = layout.comm, layout.rank, layout.size, disp.n
+    comm, rank, size, n = layout.comm, layout.rank, layout.size, layout.n
     path = Path(path)
     mine = part_path(path, rank, size)
     error = None
@@ -280,36 +303,19 @@ def write_particles_parts(path, growth, disp, layout, mass, dtype, write_ids, pa
         error = exc
     agree(comm, error)
 
-    attrs = _root_attrs(growth, disp.box_size, n, mass, disp.order, parameters_toml, cosmology, seed,
+    attrs = _root_attrs(growth, box_size, n, mass, order, parameters_toml, cosmology, seed,
                         fixed_amplitude, paired, extra_attrs)
-    rows = disp.planes * n * n
-    row_start = disp.x0 * n * n
+    rows = (layout.x1 - layout.x0) * n * n
+    row_start = layout.x0 * n * n
     tmp_cm = atomic_path(mine, overwrite)
-    error, crc, planes = None, {"position": 0, "velocity": 0, "id": 0}, []
+    error, crc, planes = None, None, None
     try:
         tmp = tmp_cm.__enter__()
         with h5py.File(tmp, "w") as f:
             _write_attrs(f, {**attrs, "part_rank": rank, "part_count": size, "part_first_row": row_start,
                              "part_rows": rows})
-            grp = f.create_group("particles")
-            pos = grp.create_dataset("position", shape=(rows, 3), dtype=dtype)
-            vel = grp.create_dataset("velocity", shape=(rows, 3), dtype=dtype)
-            ids = grp.create_dataset("id", shape=(rows,), dtype=np.uint64) if write_ids else None
-            for row0, p, v, stats in particles.slabs(growth, disp, dtype):
-                planes.append(stats)
-                m = p.shape[0]
-                pos[row0:row0 + m] = p
-                vel[row0:row0 + m] = v
-                crc["position"] = checksum(p, crc["position"])
-                crc["velocity"] = checksum(v, crc["velocity"])
-                if ids is not None:
-                    block = np.arange(row_start + row0, row_start + row0 + m, dtype=np.uint64)
-                    ids[row0:row0 + m] = block
-                    crc["id"] = checksum(block, crc["id"])
-            for ds, name in ((pos, "position"), (vel, "velocity"), (ids, "id")):
-                if ds is not None:
-                    ds.attrs["units"] = UNITS[name]
-                    ds.attrs["checksum_crc32"] = np.uint32(crc[name])
+            crc, planes, _ = _stream_fields(f.create_group("particles"), fields, layout.x0, n, box_size, dtype,
+                                            write_ids, row_start)
         with h5py.File(tmp, "r") as f:  # read back before anything is renamed
             for name in ("position", "velocity") + (("id",) if write_ids else ()):
                 if int(f["particles"][name].attrs["checksum_crc32"]) != crc[name]:
@@ -323,7 +329,7 @@ def write_particles_parts(path, growth, disp, layout, mass, dtype, write_ids, pa
         raise
 
     # Everyone wrote a verified part: gather sizes and checksums, rename the parts, write the master.
-    info = comm.gather((rank, rows, dict(crc), np.concatenate(planes)), root=0)
+    info = comm.gather((rank, rows, dict(crc), planes), root=0)
     tmp_cm.__exit__(None, None, None)  # rename this rank's part
     error, summary = None, None
     if rank == 0:

@@ -37,7 +37,7 @@ from .decomp import Layout
 from .errors import ParameterError
 from .field import DensityModes
 
-__all__ = ["Displacements", "displacements"]
+__all__ = ["Displacements", "displacements", "output_fields"]
 
 
 @dataclass(frozen=True, eq=False)
@@ -149,22 +149,7 @@ def displacements(modes, order=2, workers=None, progress=None, overwrite_modes=F
 
     psi_2 = None
     if order == 2:
-        # phi_1,ij = IFFT[k_i k_j delta_k / k^2]; S = sum_{i>j} phi_ii phi_jj - phi_ij^2.
-        diag = []
-        for d in range(3):
-            _kernels._derivative_modes(dk, n, 0, iy0, kf, d, d, scratch)
-            diag.append(_inverse(scratch, n, workers))
-            tick(f"phi_{d}{d}")
-        source = diag[0]
-        _kernels._second_order_source_diag(diag[0], diag[1], diag[2], source)  # elementwise, in place
-        del diag
-        for d1, d2 in ((0, 1), (0, 2), (1, 2)):
-            _kernels._derivative_modes(dk, n, 0, iy0, kf, d1, d2, scratch)
-            _kernels._subtract_square(source, _inverse(scratch, n, workers))
-            tick(f"phi_{d1}{d2}")
-        source_k = layout.forward(source, workers)
-        del source
-        tick("source")
+        source_k = _second_order_source_k(modes, layout, scratch, workers, tick)
         psi_2 = np.empty((3, *real_shape), dtype=rdt)
         for d in range(3):
             # psi_2(k) = -i k_d S_k / k^2: the kernel gives +i k_d/k^2, so negate.
@@ -186,3 +171,93 @@ def displacements(modes, order=2, workers=None, progress=None, overwrite_modes=F
         del target
         tick(f"psi_1[{d}]")
     return Displacements(psi_1=psi_1, psi_2=psi_2, box_size=modes.box_size, x0=layout.x0)
+
+
+def _second_order_source_k(modes, layout, scratch, workers, tick):
+    """Half spectrum S_k of the 2LPT source S = sum_{i>j} phi_ii phi_jj - phi_ij^2 (this rank's slab)."""
+    n, kf, iy0, dk = modes.n, modes.k_fundamental, modes.iy0, modes.delta_k
+    # phi_1,ij = IFFT[k_i k_j delta_k / k^2].
+    diag = []
+    for d in range(3):
+        _kernels._derivative_modes(dk, n, 0, iy0, kf, d, d, scratch)
+        diag.append(layout.inverse(scratch, workers))
+        tick(f"phi_{d}{d}")
+    source = diag[0]
+    _kernels._second_order_source_diag(diag[0], diag[1], diag[2], source)  # elementwise, in place
+    del diag
+    for d1, d2 in ((0, 1), (0, 2), (1, 2)):
+        _kernels._derivative_modes(dk, n, 0, iy0, kf, d1, d2, scratch)
+        _kernels._subtract_square(source, layout.inverse(scratch, workers))
+        tick(f"phi_{d1}{d2}")
+    source_k = layout.forward(source, workers)
+    tick("source")
+    return source_k
+
+
+def output_fields(modes, order, c_pos, c_vel, workers=None, progress=None):
+    """The displacement and velocity fields of the particles, one after the other (a generator).
+
+    Lower peak memory than :func:`displacements`: at most three real fields are alive.
+
+    Parameters
+    ----------
+    modes : DensityModes
+        Linear density modes at D1 = 1 (this rank's slab in a distributed run). They are
+        used as scratch for the last transform and are garbage afterwards.
+    order : {1, 2}
+    c_pos, c_vel : tuple of two floats
+        (c1, c2) of the displacement c1 psi_1 + c2 psi_2 (Mpc/h) and of the velocity
+        (km/s): (D1, D2) and (a H f1 D1, a H f2 D2) with H per Mpc/h.
+    workers : int, optional
+    progress : callable, optional
+
+    Yields
+    ------
+    kind : {"position", "velocity"}
+    field : tuple of three ndarrays, each (nx, n, n)
+        Components; multiply by ``scale`` to get the displacement (Mpc/h) or the velocity (km/s).
+    scale : float
+
+    Notes
+    -----
+    First order: psi_1 is computed once and yielded twice (scales D1 and a H f1 D1).
+    Second order: each field is one transform per component of
+    i k / k^2 (c1 delta_k - c2 S_k), the sum of the two orders in Fourier space, so
+    it equals c1 psi_1 + c2 psi_2 of :func:`displacements` to round-off (not bit for
+    bit). The consumer must drop its reference to a field before asking for the next.
+    """
+    if not isinstance(modes, DensityModes):
+        raise TypeError(f"modes must be DensityModes, got {type(modes).__name__}")
+    if order not in (1, 2):
+        raise ParameterError(f"lpt_order = {order!r}: allowed values are 1 and 2")
+    if order == 1:
+        disp = displacements(modes, 1, workers=workers, progress=progress, overwrite_modes=True)
+        psi = tuple(disp.psi_1)
+        del disp
+        yield "position", psi, c_pos[0]
+        yield "velocity", psi, c_vel[0]
+        return
+    n, kf, iy0 = modes.n, modes.k_fundamental, modes.iy0
+    layout = modes.layout if modes.layout is not None else Layout(n)
+    tick = progress or (lambda stage: None)
+    dk = modes.delta_k
+    scratch = np.empty_like(dk)
+    source_k = _second_order_source_k(modes, layout, scratch, workers, tick)
+    for kind, (c1, c2) in (("position", c_pos), ("velocity", c_vel)):
+        field = []  # three separate arrays: no copy of each transform's output
+        for d in range(3):
+            last = kind == "velocity" and d == 2
+            if last:  # the last transform reuses the modes' memory
+                del scratch
+                dk.flags.writeable = True
+                target = dk
+            else:
+                target = scratch
+            _kernels._gradient_combo(dk, c1, source_k, -c2, n, 0, iy0, kf, d, target)
+            if last:
+                del source_k
+            field.append(layout.inverse(target, workers))
+            del target
+            tick(f"{kind}[{d}]")
+        yield kind, tuple(field), 1.0
+        del field

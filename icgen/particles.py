@@ -20,7 +20,8 @@ from .errors import ParameterError
 from .lpt import Displacements
 from .units import RHO_CRIT_100
 
-__all__ = ["ParticleSet", "at", "slabs", "summarize", "particle_mass", "StartGrowth"]
+__all__ = ["ParticleSet", "at", "slabs", "field_slabs", "coefficients", "summarize", "particle_mass",
+           "StartGrowth"]
 
 
 def particle_mass(omega_m, box_size, n):
@@ -114,8 +115,8 @@ def summarize(plane_stats):
     Parameters
     ----------
     plane_stats : ndarray, shape (n, 6)
-        Per grid plane: sum, sum of squares and max |.| of the displacement components
-        (Mpc/h) and of the velocity components (km/s).
+        Per grid plane (all n planes of the grid, in order): sum, sum of squares and
+        max |.| of the displacement components (Mpc/h) and of the velocity components (km/s).
 
     Returns
     -------
@@ -168,6 +169,59 @@ def slabs(growth, disp, dtype=np.float32, planes_per_slab=None):
         _kernels._particle_slab(disp.psi_1, psi2, i0, i1, disp.x0, c, disp.box_size, pos[:rows], vel[:rows],
                                 stats)
         yield i0 * n * n, pos[:rows], vel[:rows], stats
+
+
+def coefficients(growth, order):
+    """((c_pos1, c_pos2), (c_vel1, c_vel2)) of displacement and velocity at the start.
+
+    displacement = c_pos1 psi_1 + c_pos2 psi_2 (Mpc/h) with (D1, D2);
+    velocity = c_vel1 psi_1 + c_vel2 psi_2 (km/s) with (a H f1 D1, a H f2 D2), H in km/s per Mpc/h.
+    The second-order coefficients are zero for order 1.
+    """
+    a_h = growth.a * growth.H / growth.h
+    d2 = growth.D2 if order == 2 else 0.0
+    return (growth.D1, d2), (a_h * growth.f1 * growth.D1, a_h * growth.f2 * d2)
+
+
+def field_slabs(kind, field, scale, x0, box_size, dtype=np.float32, planes_per_slab=None):
+    """Positions or velocities from one field, slab by slab (a generator), for streaming output.
+
+    Parameters
+    ----------
+    kind : {"position", "velocity"}
+    field : sequence of three ndarrays, each (planes, n, n)
+        Displacement or velocity components over ``scale`` (see :func:`icgen.lpt.output_fields`).
+    scale : float
+    x0 : int
+        Global index of the field's first plane.
+    box_size : float
+        L in Mpc/h.
+    dtype : {numpy.float32, numpy.float64}
+    planes_per_slab : int, optional
+
+    Yields
+    ------
+    row0 : int
+        First row of the slab, counted from the field's first plane.
+    block : ndarray, shape (rows, 3)
+        Positions in [0, L) (Mpc/h) or velocities (km/s); the buffer is reused.
+    plane_stats : ndarray, shape (planes, 3)
+        Sum, sum of squares and max |.| of the displacement or velocity components.
+    """
+    dtype = _check_dtype(dtype)
+    fx, fy, fz = field
+    planes, n = fx.shape[0], fx.shape[2]
+    per = planes_per_slab or max(1, (1 << 21) // (n * n))
+    buf = np.empty((per * n * n, 3), dtype=dtype)
+    for i0 in range(0, planes, per):
+        i1 = min(planes, i0 + per)
+        rows = (i1 - i0) * n * n
+        stats = np.empty((i1 - i0, 3))
+        if kind == "position":
+            _kernels._position_slab(fx, fy, fz, scale, i0, i1, x0, box_size, buf[:rows], stats)
+        else:
+            _kernels._velocity_slab(fx, fy, fz, scale, i0, i1, buf[:rows], stats)
+        yield i0 * n * n, buf[:rows], stats
 
 
 def at(growth, disp, omega_m, dtype=np.float32, write_ids=True):

@@ -11,7 +11,8 @@ import numpy as np
 from . import field, lpt, particles, start
 from .errors import ParameterError
 
-__all__ = ["GridSetup", "grid_setup", "start_scale_factor", "displacement_fields", "initial_conditions",
+__all__ = ["GridSetup", "grid_setup", "start_scale_factor", "displacement_fields", "particle_fields",
+           "initial_conditions",
            "N_PROGRESS_STEPS"]
 
 
@@ -96,6 +97,26 @@ def displacement_fields(pk, bg, setup, workers=None, progress=None, layout=None)
     tick("modes")
     # The modes are used by nothing else: let the last transform reuse their memory.
     return lpt.displacements(modes, setup.lpt_order, workers=workers, progress=tick, overwrite_modes=True)
+
+
+def particle_fields(pk, bg, setup, a_start, workers=None, progress=None, layout=None):
+    """Linear modes -> the displacement and velocity fields at a_start, one after the other.
+
+    Returns
+    -------
+    growth : StartGrowth
+    fields : generator of (kind, field, scale)
+        See :func:`icgen.lpt.output_fields`; this rank's x-slab in a distributed run
+        (bit-identical to the serial fields for any number of ranks).
+    """
+    modes = field.linear_density_modes(lambda k: pk.P(k, 0.0), setup.seed, setup.n, setup.box_size,
+                                       setup.fixed_amplitude, setup.paired, dtype=setup.dtype,
+                                       layout=layout)
+    if progress:
+        progress("modes")
+    growth = particles.StartGrowth.from_background(bg, a_start)
+    c_pos, c_vel = particles.coefficients(growth, setup.lpt_order)
+    return growth, lpt.output_fields(modes, setup.lpt_order, c_pos, c_vel, workers=workers, progress=progress)
 
 
 def initial_conditions(pk, bg, setup, a_start, workers=None, progress=None):

@@ -117,22 +117,41 @@ def test_bit_identical_on_one_and_two_threads():
     assert digests[0] == digests[1] and len(digests[0]) == 64
 
 
+def _stream(out, g, order, n, box, dtype, seed=3, write_ids=True):
+    from icgen import io_hdf5
+
+    m = field.linear_density_modes(lambda k: 400.0 * k**-1.5, seed, n, box)
+    c_pos, c_vel = particles.coefficients(g, order)
+    fields = lpt.output_fields(m, order, c_pos, c_vel)
+    return io_hdf5.write_particles_streamed(out, g, fields, n, box, order, 1.0, dtype, write_ids, "", COSMO, seed)
+
+
 def test_streamed_file_equals_in_memory_particles(bg, tmp_path):
-    # The streaming writer and particles.at share one kernel: bit-identical datasets.
+    # First order: the streaming writer and particles.at apply the same arithmetic: bit-identical.
+    # Second order: the stream sums the two orders in Fourier space (one transform per component),
+    # particles.at in real space; they agree to float64 round-off of the displacement.
     from icgen import io_hdf5
 
     n, box = 16, 80.0
-    disp = _disp(n, box, 2)
     g = particles.StartGrowth.from_background(bg, 0.02)
-    parts = particles.at(g, disp, COSMO.omega_m, np.float32)
-    out = tmp_path / "s.h5"
-    io_hdf5.write_particles_streamed(out, g, disp, parts.mass, np.float32, True, "", COSMO, 3)
-    attrs, data = io_hdf5.read_particles(out)
-    np.testing.assert_array_equal(data["position"], parts.position)
-    np.testing.assert_array_equal(data["velocity"], parts.velocity)
-    np.testing.assert_array_equal(data["id"], parts.id)
-    assert attrs["grid_per_side"] == n and attrs["n_particles"] == n**3
-    assert attrs["particle_mass"] == pytest.approx(particles.particle_mass(0.3, box, n), rel=1e-15)
+    for order in (1, 2):
+        parts = particles.at(g, _disp(n, box, order), COSMO.omega_m, np.float64)
+        out = tmp_path / f"s{order}.h5"
+        stats = _stream(out, g, order, n, box, np.float64)
+        attrs, data = io_hdf5.read_particles(out)
+        np.testing.assert_array_equal(data["id"], parts.id)
+        if order == 1:
+            np.testing.assert_array_equal(data["position"], parts.position)
+            np.testing.assert_array_equal(data["velocity"], parts.velocity)
+        else:
+            d = data["position"] - parts.position
+            d -= box * np.rint(d / box)
+            assert np.abs(d).max() < 1e-12 * box
+            np.testing.assert_allclose(data["velocity"], parts.velocity, rtol=0,
+                                       atol=1e-12 * np.abs(parts.velocity).max())
+        assert stats["displacement"]["rms"] == pytest.approx(parts.stats["displacement"]["rms"], rel=1e-10)
+        assert stats["velocity"]["max"] == pytest.approx(parts.stats["velocity"]["max"], rel=1e-10)
+        assert attrs["grid_per_side"] == n and attrs["n_particles"] == n**3
 
 
 def test_float32_pipeline_error_is_far_below_the_spacing(bg):
@@ -158,10 +177,9 @@ def test_stored_checksums_verify_and_detect_corruption(bg, tmp_path):
     from icgen import io_hdf5
 
     n, box = 8, 40.0
-    disp = _disp(n, box, 1)
     g = particles.StartGrowth.from_background(bg, 0.05)
     out = tmp_path / "c.h5"
-    io_hdf5.write_particles_streamed(out, g, disp, 1.0, np.float32, True, "", COSMO, 3)
+    _stream(out, g, 2, n, box, np.float32)
     assert io_hdf5.verify_file(out, full=True) == []
     with h5py.File(out, "r+") as f:
         f["particles/velocity"][5, 1] += 1.0

@@ -68,9 +68,8 @@ def generate(params, out, overwrite=False, workers=None, quiet=False):
     steps = pipeline.N_PROGRESS_STEPS[setup.lpt_order] + 1
     with progress_bar(steps, f"ics {setup.n}^3" + (f" on {layout.size} ranks" if layout.distributed else ""),
                       disable=quiet or layout.rank != 0) as bar:
-        disp = pipeline.displacement_fields(pk, bg, setup, workers, progress=lambda stage: bar.update(1),
-                                            layout=layout)
-        growth = particles.StartGrowth.from_background(bg, a_start)
+        growth, fields = pipeline.particle_fields(pk, bg, setup, a_start, workers,
+                                                  progress=lambda stage: bar.update(1), layout=layout)
         mass = particles.particle_mass(cosmo.omega_m, setup.box_size, setup.n)
         extra = {}
         if params.get("spectrum", "source") == "table":
@@ -81,14 +80,16 @@ def generate(params, out, overwrite=False, workers=None, quiet=False):
             extra["start_rule"] = json.dumps({"rule": "auto (common practice, see icgen.start)",
                                               **advice.limits, "z_start_1lpt": advice.z_start_1lpt,
                                               "z_start_2lpt": advice.z_start_2lpt})
-        args = (growth, disp)
         common = dict(parameters_toml=params.to_toml(), cosmology=cosmo, seed=setup.seed,
                       fixed_amplitude=setup.fixed_amplitude, paired=setup.paired, overwrite=overwrite,
                       extra_attrs=extra)
         if layout.distributed:
-            stats = io_hdf5.write_particles_parts(out, *args, layout, mass, setup.dtype, setup.write_ids, **common)
+            stats = io_hdf5.write_particles_parts(out, growth, fields, layout, setup.box_size, setup.lpt_order,
+                                                  mass, setup.dtype, setup.write_ids, **common)
         else:
-            stats = io_hdf5.write_particles_streamed(out, *args, mass, setup.dtype, setup.write_ids, **common)
+            stats = io_hdf5.write_particles_streamed(out, growth, fields, setup.n, setup.box_size,
+                                                     setup.lpt_order, mass, setup.dtype, setup.write_ids,
+                                                     **common)
         bar.update(1)
     info = {"out": str(out), "bg": bg, "pk": pk, "n": setup.n, "box_size": setup.box_size,
             "order": setup.lpt_order, "mass": mass, "growth": growth, "ranks": layout.size,
