@@ -8,6 +8,7 @@ replaced when the caller says ``overwrite=True``.
 
 import contextlib
 import os
+import shutil
 import tempfile
 from pathlib import Path
 
@@ -15,7 +16,8 @@ import numpy as np
 
 from .errors import InputError
 
-__all__ = ["atomic_path", "check_output_path", "write_columns", "CSV_FORMAT"]
+__all__ = ["atomic_path", "check_output_path", "write_columns", "CSV_FORMAT", "check_output_dir", "staging_dir",
+           "swap_in_dir", "roll_back_dir"]
 
 #: printf format of floating values in CSV tables: 15 significant digits.
 CSV_FORMAT = "%.15g"
@@ -100,3 +102,49 @@ def write_columns(path, columns, units=None, attrs=None, overwrite=False):
             np.savetxt(tmp, table, delimiter=",", header=",".join(names), comments="",
                        fmt=CSV_FORMAT)
     return path
+
+
+def check_output_dir(out_dir, overwrite=False):
+    """Refuse an output directory that is a file, is non-empty (unless overwrite) or has no parent."""
+    out_dir = Path(out_dir)
+    if out_dir.exists() and not out_dir.is_dir():
+        raise InputError(f"--out-dir {out_dir} exists and is not a directory")
+    if out_dir.exists() and any(out_dir.iterdir()) and not overwrite:
+        raise InputError(f"--out-dir {out_dir} exists and is not empty; pass --overwrite to replace it")
+    parent = out_dir.resolve().parent
+    if not parent.is_dir():
+        raise InputError(f"the parent directory {parent} of --out-dir does not exist")
+    return out_dir
+
+
+def staging_dir(out_dir):
+    """A new empty temporary directory next to ``out_dir`` to build it in."""
+    out_dir = Path(out_dir)
+    return Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.", suffix=".partial", dir=out_dir.resolve().parent))
+
+
+def swap_in_dir(tmp, out_dir):
+    """Move a finished staging directory onto out_dir.
+
+    Returns
+    -------
+    Path or None
+        Where an existing out_dir was put aside: remove it with shutil.rmtree once
+        the new one is final, or restore it with :func:`roll_back_dir`.
+    """
+    out_dir = Path(out_dir)
+    os.chmod(tmp, 0o777 & ~_umask())
+    old = None
+    if out_dir.exists():
+        old = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.", suffix=".old", dir=out_dir.resolve().parent))
+        os.rmdir(old)
+        os.replace(out_dir, old)
+    os.replace(tmp, out_dir)
+    return old
+
+
+def roll_back_dir(out_dir, old):
+    """Remove a failed out_dir and put the old one (if any) back."""
+    shutil.rmtree(out_dir, ignore_errors=True)
+    if old is not None:
+        os.replace(old, out_dir)

@@ -1,6 +1,5 @@
 """Particles at the start: positions, velocities, ids, mass; determinism across threads."""
 
-import hashlib
 import os
 import subprocess
 import sys

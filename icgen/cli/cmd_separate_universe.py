@@ -30,7 +30,6 @@ import json
 import math
 import os
 import shutil
-import tempfile
 import time
 import warnings
 from pathlib import Path
@@ -386,18 +385,6 @@ def write_local_schedule(out_dir, su, snaps, plan):
     return cols, steps_cols
 
 
-def _prepare_dir(out_dir, overwrite):
-    out_dir = Path(out_dir)
-    if out_dir.exists() and not out_dir.is_dir():
-        raise InputError(f"--out-dir {out_dir} exists and is not a directory")
-    if out_dir.exists() and any(out_dir.iterdir()) and not overwrite:
-        raise InputError(f"--out-dir {out_dir} exists and is not empty; pass --overwrite to replace it")
-    parent = out_dir.resolve().parent
-    if not parent.is_dir():
-        raise InputError(f"the parent directory {parent} of --out-dir does not exist")
-    return out_dir
-
-
 def summary_lines(su, summ, sigma_8_local):
     """Human summary of the construction (lines of text)."""
     m = su.model
@@ -454,25 +441,6 @@ def local_run(out_dir, su, snaps_global, summ, workers=None, quiet=False):
             f"{plan.table.n_steps} steps even in {plan.table.spacing}"]
 
 
-def _swap_in(tmp, out_dir):
-    """Move the staged directory onto out_dir; return where an old out_dir was put aside (or None)."""
-    os.chmod(tmp, 0o755)
-    old = None
-    if out_dir.exists():
-        old = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.", suffix=".old", dir=out_dir.resolve().parent))
-        os.rmdir(old)
-        os.replace(out_dir, old)
-    os.replace(tmp, out_dir)
-    return old
-
-
-def _roll_back(out_dir, old):
-    """Remove a failed out_dir and put the old one (if any) back."""
-    shutil.rmtree(out_dir, ignore_errors=True)
-    if old is not None:
-        os.replace(old, out_dir)
-
-
 def _check_args(args):
     if not math.isfinite(args.delta_l):
         raise InputError(f"--delta-l = {args.delta_l!r}: need a finite number")
@@ -494,7 +462,7 @@ def run(args):
     _check_args(args)
     params = load_params(args)
     cosmo = params.cosmology
-    out_dir = _prepare_dir(args.out_dir, args.overwrite)
+    out_dir = io_output.check_output_dir(args.out_dir, args.overwrite)
     plot_path = None
     if args.plot is not None and args.plot is not True:  # bare --plot: inside the directory
         plot_path = io_output.check_output_path(args.plot, args.overwrite)
@@ -525,7 +493,7 @@ def run(args):
         raise InputError(f"--a-min = {args.a_min:g} is not below the end of the mapping, a_global = {a_hi:g}")
     cols = mapping_columns(su, mapping_times(su, args.a_min, a_hi, args.points))
 
-    tmp = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.", suffix=".partial", dir=out_dir.resolve().parent))
+    tmp = io_output.staging_dir(out_dir)
     lines = []
     try:
         toml_path = tmp / FILES["parameters"]
@@ -558,7 +526,7 @@ def run(args):
     except BaseException:
         shutil.rmtree(tmp, ignore_errors=True)
         raise
-    old = _swap_in(tmp, out_dir)
+    old = io_output.swap_in_dir(tmp, out_dir)
     try:
         if args.ics:
             # The ICs are made in place, from the final local.toml, so that the parameters and the
@@ -567,7 +535,7 @@ def run(args):
             lines += local_run(out_dir, su, snaps_global, summ, args.workers, args.quiet)
             _write_summary(out_dir / FILES["summary"], summ, overwrite=True)
     except BaseException:
-        _roll_back(out_dir, old)
+        io_output.roll_back_dir(out_dir, old)
         raise
     if old is not None:
         shutil.rmtree(old, ignore_errors=True)
