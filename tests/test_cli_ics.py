@@ -130,3 +130,15 @@ def test_console_script_runs(tmp_path):
     assert res.returncode == 0, res.stderr
     with h5py.File(out) as f:
         assert f.attrs["n_particles"] == 16**3 and f["particles/position"].shape == (16**3, 3)
+
+
+def test_inspect_verifies_stored_checksums(tmp_path, capsys):
+    # Issue 8: the checksum of each dataset is stored and `icgen inspect` verifies it.
+    out = tmp_path / "ics.h5"
+    assert _run(["ics", "--out", str(out), "--quiet"] + SMALL, capsys)[0] == 0
+    code, stdout, _ = _run(["inspect", str(out)], capsys)
+    assert code == 0 and "PASS  integrity" in stdout
+    with h5py.File(out, "r+") as f:
+        f["particles/velocity"][7, 2] *= 1.0001  # one value, far below what the physics checks see
+    code, stdout, _ = _run(["inspect", str(out)], capsys)
+    assert code == 1 and "FAIL  integrity" in stdout and "velocity: checksum mismatch" in stdout
