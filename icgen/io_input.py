@@ -18,6 +18,7 @@ Every problem is raised as :class:`~icgen.errors.TableError` naming the file, th
 line and what is wrong; nothing is guessed or silently dropped.
 """
 
+import re
 import warnings
 from dataclasses import dataclass
 from pathlib import Path
@@ -96,12 +97,17 @@ def _split(line):
     return [f.strip() for f in line.split(",")] if "," in line else line.split()
 
 
+#: Line ends as an editor counts them. (``str.splitlines`` also breaks at form feeds,
+#: \x1c-\x1e, \x85 and U+2028/9, which would put every later line number off.)
+_LINE_END = re.compile(r"\r\n|\r|\n")
+
+
 def _parse_rows(path, text, columns):
     """Numbers of the wanted columns and their line numbers; TableError on any bad row."""
     rows, lines = [], []
     ncol, first_line = None, None
     need = max(columns) + 1
-    for n, raw in enumerate(text.splitlines(), start=1):
+    for n, raw in enumerate(_LINE_END.split(text), start=1):
         body = raw.split("#", 1)[0].strip()
         if not body:
             continue
@@ -116,17 +122,15 @@ def _parse_rows(path, text, columns):
             raise TableError(f"{path}, line {n}: {len(fields)} columns, but the first data row "
                              f"(line {first_line}) has {ncol}; every row needs the same columns")
         vals = []
-        for c in columns:
-            f = fields[c]
+        for c, f in enumerate(fields):  # every field must be a number, not only the two used
             if f == "":
                 raise TableError(f"{path}, line {n}, column {c}: empty field")
             try:
-                v = float(f)
+                vals.append(float(f))
             except ValueError:
                 raise TableError(f"{path}, line {n}, column {c}: {f!r} is not a number "
                                  "(comment out header lines with '#')") from None
-            vals.append(v)
-        rows.append(vals)
+        rows.append([vals[c] for c in columns])
         lines.append(n)
     return rows, lines
 
@@ -173,10 +177,13 @@ def read_spectrum_table(path, columns=(0, 1), quantity="power", k_unit="h/Mpc", 
         data = path.read_bytes()
     except OSError as exc:
         raise TableError(f"cannot read table {path}: {exc.strerror}") from None
+    except ValueError as exc:  # a NUL character in the name ("embedded null byte")
+        raise TableError(f"cannot read table {str(path)!r}: {exc}") from None
     try:
         text = data.decode("utf-8")
-    except UnicodeDecodeError as exc:
-        line = data[:exc.start].count(b"\n") + 1
+    except UnicodeDecodeError as exc:  # count line ends as _LINE_END does
+        line = (data.count(b"\n", 0, exc.start) + data.count(b"\r", 0, exc.start)
+                - data.count(b"\r\n", 0, exc.start) + 1)
         raise TableError(f"{path}, line {line}: not UTF-8 text (is this a binary file?)") from None
 
     rows, lines = _parse_rows(path, text, columns)
@@ -214,9 +221,20 @@ def read_spectrum_table(path, columns=(0, 1), quantity="power", k_unit="h/Mpc", 
                          f"line {line[i - 1]}, has k = {float(k[i - 1])!r}); rows must be sorted by "
                          "strictly increasing k")
     if k_unit == "1/Mpc":
-        k = k / h                                  # 1/Mpc -> h/Mpc
-        if quantity == "power":
-            v = v * h**3                           # Mpc^3 -> (Mpc/h)^3
+        with np.errstate(all="ignore"):  # overflow or underflow is checked just below
+            k_file, v_file = k, v
+            k = k / h                                  # 1/Mpc -> h/Mpc
+            if quantity == "power":
+                v = v * h**3                           # Mpc^3 -> (Mpc/h)^3
+        for name, col, x, x_file in (("k", columns[0], k, k_file), (vname, columns[1], v, v_file)):
+            bad = ~(np.isfinite(x) & (x > 0.0))
+            if name == "k" and not bad.any():
+                bad[1:] = np.diff(x) <= 0.0
+            if bad.any():
+                i = int(np.argmax(bad))
+                raise TableError(f"{path}, line {line[i]}, column {col}: {name} = {float(x_file[i])!r} "
+                                 f"becomes {float(x[i])!r} in h/Mpc units (h = {h!r}): beyond the range "
+                                 "of double precision")
     return SpectrumTable(path=str(path), k=np.ascontiguousarray(k), value=np.ascontiguousarray(v),
                          line=line, quantity=quantity, k_unit=k_unit, columns=columns)
 

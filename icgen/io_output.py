@@ -17,10 +17,34 @@ import numpy as np
 from .errors import InputError
 
 __all__ = ["atomic_path", "check_output_path", "write_columns", "CSV_FORMAT", "check_output_dir", "staging_dir",
-           "swap_in_dir", "roll_back_dir"]
+           "swap_in_dir", "roll_back_dir", "note_interrupt", "pending_interrupt"]
 
 #: printf format of floating values in CSV tables: 15 significant digits.
 CSV_FORMAT = "%.15g"
+
+
+#: The interrupt (KeyboardInterrupt or its SIGTERM subclass) the command line's signal handler
+#: raised, if any. Python may run a handler where an exception cannot propagate -- in a weakref
+#: callback or a ``__del__`` (h5py frees objects that way), where it is printed and dropped --
+#: so :func:`atomic_path` and :func:`swap_in_dir` check this too before they rename: an
+#: interrupted output is never committed, wherever the interrupt landed.
+_interrupt = None
+
+
+def note_interrupt(exc):
+    """Record the interrupt in progress (``None`` clears it); see :data:`_interrupt`."""
+    global _interrupt
+    _interrupt = exc
+
+
+def pending_interrupt():
+    """The interrupt recorded by :func:`note_interrupt`, or None."""
+    return _interrupt
+
+
+def _raise_if_interrupted():
+    if _interrupt is not None:
+        raise type(_interrupt)()
 
 
 def _umask():
@@ -56,6 +80,7 @@ def atomic_path(path, overwrite=False):
     os.close(fd)
     try:
         yield Path(tmp)
+        _raise_if_interrupted()  # one that could not propagate (see _interrupt)
         os.chmod(tmp, 0o666 & ~_umask())  # mkstemp creates 0600; give the usual permissions
         os.replace(tmp, path)
     except BaseException:
@@ -133,6 +158,7 @@ def swap_in_dir(tmp, out_dir):
         the new one is final, or restore it with :func:`roll_back_dir`.
     """
     out_dir = Path(out_dir)
+    _raise_if_interrupted()  # one that could not propagate (see _interrupt)
     os.chmod(tmp, 0o777 & ~_umask())
     old = None
     if out_dir.exists():

@@ -14,13 +14,14 @@ Each stage reads its section through :meth:`Parameters.get`; keys with no defaul
 import dataclasses
 import difflib
 import math
+import re
 import tomllib
 from dataclasses import dataclass, field
 from functools import cached_property
 from pathlib import Path
 from types import MappingProxyType
 
-from .cosmology import PLANCK18, RANGES as COSMO_RANGES, Cosmology
+from .cosmology import PLANCK18, RANGES as COSMO_RANGES
 from .errors import ParameterError
 
 __all__ = ["Key", "SCHEMA", "REQUIRED", "Parameters", "load", "loads", "parse_override", "to_toml"]
@@ -50,6 +51,7 @@ class Key:
     choices: tuple = ()
     doc: str = ""
     nullable: bool = False
+    even: bool = False
 
 
 def _cosmo_key(name, doc):
@@ -92,7 +94,7 @@ SCHEMA = {
     },
     "box": {
         "size": Key("float", REQUIRED, 1e-3, 1e6, doc="comoving box side in Mpc/h"),
-        "particles_per_side": Key("int", REQUIRED, 4, 16384,
+        "particles_per_side": Key("int", REQUIRED, 4, 16384, even=True,
                                   doc="particles per side, N (even; at least 4 spacings per box side)"),
     },
     "start": {
@@ -144,9 +146,31 @@ SCHEMA = {
 }
 
 
+#: Longest text of a value or a name quoted in a message; a longer one is cut (a
+#: message stays one readable line whatever the file holds).
+_SHOW_MAX = 80
+
+
+def _show(value):
+    """``repr(value)`` for a message, cut to about _SHOW_MAX characters."""
+    text = repr(value)
+    if len(text) > _SHOW_MAX:
+        size = len(value) if isinstance(value, str) else len(text)
+        text = f"{text[:_SHOW_MAX]}... ({size} characters)"
+    return text
+
+
+def _name(name):
+    """A section or key name for a message: as it is, unless unprintable (a newline) or huge."""
+    name = str(name)
+    return name if name.isprintable() and len(name) <= _SHOW_MAX else _show(name)
+
+
 def _suggest(name, valid):
-    close = difflib.get_close_matches(name, list(valid), n=1, cutoff=0.5)
-    return f"; did you mean '{close[0]}'?" if close else f"; valid: {', '.join(sorted(valid))}"
+    by_lower = {v.lower(): v for v in valid}  # "KDK" is nearest to "kdk"
+    close = (difflib.get_close_matches(name.lower(), list(by_lower), n=1, cutoff=0.5)
+             if len(name) <= 4 * _SHOW_MAX else [])  # no name that long is close to a valid one
+    return f"; did you mean '{by_lower[close[0]]}'?" if close else f"; valid: {', '.join(sorted(valid))}"
 
 
 def _range_text(key):
@@ -165,40 +189,47 @@ def _check_value(section, name, key, value, where):
         kind = "float"
     if kind in ("float", "int"):
         if isinstance(value, bool) or not isinstance(value, (int, float)):
-            raise ParameterError(f"{label}: expected a number in {_range_text(key)}, got {value!r}")
+            raise ParameterError(f"{label}: expected a number in {_range_text(key)}, got {_show(value)}")
         if kind == "int" and not (isinstance(value, int) or float(value).is_integer()):
-            raise ParameterError(f"{label}: expected an integer in {_range_text(key)}, got {value!r}")
-        if not math.isfinite(value) or not key.lo <= value <= key.hi:
-            raise ParameterError(f"{label} = {value!r} is outside the allowed range {_range_text(key)}")
+            raise ParameterError(f"{label}: expected an integer in {_range_text(key)}, got {_show(value)}")
+        # (a TOML integer may exceed the float range: math.isfinite would overflow on it)
+        if not (isinstance(value, int) or math.isfinite(value)) or not key.lo <= value <= key.hi:
+            raise ParameterError(f"{label} = {_show(value)} is outside the allowed range {_range_text(key)}")
+        if key.even and int(value) % 2:
+            raise ParameterError(f"{label} = {_show(value)} is odd; need an even integer in {_range_text(key)}")
         return int(value) if kind == "int" else float(value)
     if kind == "bool":
         if not isinstance(value, bool):
-            raise ParameterError(f"{label}: expected true or false, got {value!r}")
+            raise ParameterError(f"{label}: expected true or false, got {_show(value)}")
         return value
     if kind == "choice":
         if value not in key.choices:
-            raise ParameterError(f"{label} = {value!r} is not one of {', '.join(map(repr, key.choices))}"
+            raise ParameterError(f"{label} = {_show(value)} is not one of {', '.join(map(repr, key.choices))}"
                                  + (_suggest(str(value), key.choices) if isinstance(value, str) else ""))
         return value
     if kind in ("str", "path"):
         if not isinstance(value, str) or not value:
-            raise ParameterError(f"{label}: expected a non-empty string, got {value!r}")
+            raise ParameterError(f"{label}: expected a non-empty string, got {_show(value)}")
+        if kind == "path" and "\0" in value:  # no file system allows it; open() would raise ValueError
+            raise ParameterError(f"{label} = {_show(value)}: a path cannot contain a NUL character")
         return value
     if kind == "int_pair":
         if (not isinstance(value, (list, tuple)) or len(value) != 2
                 or not all(isinstance(v, int) and not isinstance(v, bool) for v in value)):
-            raise ParameterError(f"{label}: expected two integers like [0, 1], got {value!r}")
+            raise ParameterError(f"{label}: expected two integers like [0, 1], got {_show(value)}")
         if not all(key.lo <= v <= key.hi for v in value) or value[0] == value[1]:
-            raise ParameterError(f"{label} = {list(value)!r}: need two different integers in {_range_text(key)}")
+            raise ParameterError(f"{label} = {_show(list(value))}: need two different integers in "
+                                 f"{_range_text(key)}")
         return tuple(value)
     if kind == "float_list":
         if not isinstance(value, (list, tuple)):
-            raise ParameterError(f"{label}: expected a list of numbers, got {value!r}")
+            raise ParameterError(f"{label}: expected a list of numbers, got {_show(value)}")
         out = []
         for v in value:
-            if isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v) \
-                    or not key.lo <= v <= key.hi:
-                raise ParameterError(f"{label}: every entry must be a number in {_range_text(key)}, got {v!r}")
+            if isinstance(v, bool) or not isinstance(v, (int, float)) \
+                    or not (isinstance(v, int) or math.isfinite(v)) or not key.lo <= v <= key.hi:
+                raise ParameterError(f"{label}: every entry must be a number in {_range_text(key)}, "
+                                     f"got {_show(v)}")
             out.append(float(v))
         return tuple(out)
     raise AssertionError(f"unknown key kind {kind}")  # pragma: no cover - schema bug
@@ -211,7 +242,7 @@ def parse_override(text):
     that is not valid TOML is taken as a bare string (``source=power_law``).
     """
     if "=" not in text or "." not in text.split("=", 1)[0]:
-        raise ParameterError(f"override {text!r}: expected section.key=value, e.g. cosmology.sigma_8=0.8")
+        raise ParameterError(f"override {_show(text)}: expected section.key=value, e.g. cosmology.sigma_8=0.8")
     lhs, rhs = text.split("=", 1)
     section, key = (s.strip() for s in lhs.split(".", 1))
     rhs = rhs.strip()
@@ -219,6 +250,8 @@ def parse_override(text):
         value = tomllib.loads(f"v = {rhs}")["v"]
     except tomllib.TOMLDecodeError:
         value = rhs
+    except RecursionError:  # tomllib recurses once per level of nesting
+        raise ParameterError(f"override {_name(section)}.{_name(key)}: the value is nested too deeply") from None
     return section, key, value
 
 
@@ -227,8 +260,9 @@ def _toml_value(v):
         return "true" if v else "false"
     if isinstance(v, (int, float)):
         return repr(v)
-    if isinstance(v, str):
-        return '"' + v.replace("\\", "\\\\").replace('"', '\\"') + '"'
+    if isinstance(v, str):  # a TOML basic string: control characters but tab must be escaped
+        v = v.replace("\\", "\\\\").replace('"', '\\"')
+        return '"' + re.sub(r"[\x00-\x08\x0a-\x1f\x7f]", lambda m: f"\\u{ord(m.group()):04X}", v) + '"'
     if isinstance(v, (list, tuple)):
         return "[" + ", ".join(_toml_value(x) for x in v) + "]"
     raise TypeError(f"cannot write {v!r} as TOML")  # pragma: no cover
@@ -322,17 +356,35 @@ def _validate(raw, where):
     given = {}
     for sec, keys in raw.items():
         if sec not in SCHEMA:
-            raise ParameterError(f"unknown section [{sec}] in {where}" + _suggest(sec, SCHEMA))
+            raise ParameterError(f"unknown section [{_name(sec)}] in {where}" + _suggest(sec, SCHEMA))
         if not isinstance(keys, dict):
-            raise ParameterError(f"'{sec}' in {where} must be a section [{sec}] of keys, got {keys!r}")
+            raise ParameterError(f"'{sec}' in {where} must be a section [{sec}] of keys, got {_show(keys)}")
         out = {}
         for key, value in keys.items():
             if key not in SCHEMA[sec]:
-                raise ParameterError(f"unknown key '{key}' in section [{sec}] of {where}"
+                raise ParameterError(f"unknown key '{_name(key)}' in section [{sec}] of {where}"
                                      + _suggest(key, SCHEMA[sec]))
             out[key] = _check_value(sec, key, SCHEMA[sec][key], value, f" in {where}")
         given[sec] = MappingProxyType(out)
+    _check_combinations(given, where)
     return MappingProxyType(given)
+
+
+def _check_combinations(given, where):
+    """Refuse combinations of valid values that contradict each other (beyond the cosmology's own)."""
+    snaps, start = given.get("snapshots", {}), given.get("start", {})
+    a_end = snaps.get("a_end", SCHEMA["snapshots"]["a_end"].default)
+    a_begin = snaps.get("a_begin")
+    if a_begin is not None and not a_end > a_begin:
+        raise ParameterError(
+            f"[snapshots] a_end = {a_end!r} in {where} is not after [snapshots] a_begin = {a_begin!r}; "
+            "the outputs run from a_begin to a_end, so need a_end > a_begin")
+    z = start.get("redshift")
+    if a_begin is None and "a_end" in snaps and isinstance(z, float) and not a_end > 1.0 / (1.0 + z):
+        raise ParameterError(
+            f"[snapshots] a_end = {a_end!r} in {where} is not after the start of the run, "
+            f"a = 1/(1 + z) = {1.0 / (1.0 + z):.6g} for [start] redshift = {z:g}; "
+            "need a_end > 1/(1 + redshift)")
 
 
 def loads(text, overrides=(), source="<string>", base_dir=None):
@@ -352,10 +404,13 @@ def loads(text, overrides=(), source="<string>", base_dir=None):
         raw = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise ParameterError(f"{source} is not valid TOML: {exc}") from None
+    except RecursionError:  # tomllib recurses once per level of nesting
+        raise ParameterError(f"{source}: arrays or tables are nested too deeply") from None
     for ov in overrides:
         sec, key, value = parse_override(ov) if isinstance(ov, str) else ov
         if sec not in SCHEMA:
-            raise ParameterError(f"override {sec}.{key}: unknown section [{sec}]" + _suggest(sec, SCHEMA))
+            raise ParameterError(f"override {_name(sec)}.{_name(key)}: unknown section [{_name(sec)}]"
+                                 + _suggest(sec, SCHEMA))
         raw.setdefault(sec, {})
         if not isinstance(raw[sec], dict):
             raise ParameterError(f"'{sec}' in {source} must be a section")

@@ -69,7 +69,8 @@ def test_inspect_passes_icgen_64_file(ics64, capsys, tmp_path):
     assert main(["inspect", str(path), "--plot", str(tmp_path / "p.png")]) == 0
     out = capsys.readouterr().out
     print(out)
-    assert "verdict: PASS (11 passed, 0 skipped)" in out
+    assert "verdict: PASS (12 passed, 0 skipped)" in out  # 11 physics/layout checks + integrity
+    assert "PASS  integrity" in out
     assert (tmp_path / "p.png").stat().st_size > 10_000
 
 
@@ -80,7 +81,8 @@ def test_inspect_passes_icgen_128_fixed_amplitude_file(tmp_path, capsys):
     assert main(["inspect", str(path)]) == 0
     out = capsys.readouterr().out
     print(out)
-    assert "verdict: PASS (11 passed, 0 skipped)" in out
+    assert "verdict: PASS (12 passed, 0 skipped)" in out  # 11 physics/layout checks + integrity
+    assert "PASS  integrity" in out
 
 
 def _corrupt(src, tmp_path, name, edit):

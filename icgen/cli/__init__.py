@@ -12,7 +12,7 @@ import pkgutil
 import signal
 import sys
 
-from .. import __version__
+from .. import __version__, io_output
 from ..errors import InputError
 from ..parallel import launched_rank
 
@@ -55,7 +55,50 @@ class Terminated(KeyboardInterrupt):
 
 
 def _terminate(signum, frame):
-    raise Terminated()
+    exc = Terminated()
+    io_output.note_interrupt(exc)  # in case Python drops it (see io_output._interrupt)
+    raise exc
+
+
+def _interrupt(signum, frame):
+    exc = KeyboardInterrupt()
+    io_output.note_interrupt(exc)
+    raise exc
+
+
+def _quiet_dropped_interrupts(previous):
+    """An unraisable-exception hook that stays silent about an interrupt Python dropped.
+
+    The handler recorded it and it ends the run cleanly later; printing "Exception
+    ignored ... Traceback" would break the one-line promise.
+    """
+    def hook(unraisable):
+        if isinstance(unraisable.exc_value, KeyboardInterrupt) and io_output.pending_interrupt():
+            return
+        previous(unraisable)
+    return hook
+
+
+def _one_line(text):
+    """A message on one line (a newline in a name or a library's message would break it)."""
+    return " ".join(str(text).splitlines())
+
+
+def _os_error_in_chain(exc):
+    """The OSError that ``exc`` arose from, if any.
+
+    A failed HDF5 write raises OSError inside ``with h5py.File(...)``; closing the file
+    then fails too, and h5py raises a RuntimeError ("Can't decrement id ref count")
+    chained on the OSError, which would otherwise end in a traceback.
+    """
+    seen = set()
+    while exc is not None and id(exc) not in seen:
+        if isinstance(exc, OSError):
+            return exc
+        seen.add(id(exc))
+        exc = exc.__cause__ if exc.__cause__ is not None else (
+            None if exc.__suppress_context__ else exc.__context__)
+    return None
 
 
 def main(argv=None):
@@ -68,20 +111,32 @@ def main(argv=None):
         parser.print_help()
         return 2
     previous = signal.signal(signal.SIGTERM, _terminate)  # SIGTERM unwinds like Ctrl-C
+    previous_int = signal.getsignal(signal.SIGINT)
+    if previous_int is signal.default_int_handler:  # (an inherited SIG_IGN stays ignored)
+        signal.signal(signal.SIGINT, _interrupt)
+    previous_hook = sys.unraisablehook
+    sys.unraisablehook = _quiet_dropped_interrupts(previous_hook)
+    io_output.note_interrupt(None)
     if launched_rank() != 0:  # under MPI only rank 0 speaks (every rank gets the same exit status)
         sys.stdout = sys.stderr = open(os.devnull, "w")  # noqa: SIM115 - lives as long as the process
     try:
-        return int(args._run(args) or 0)
+        status = int(args._run(args) or 0)
+        if io_output.pending_interrupt() is not None:  # one that Python dropped (see io_output)
+            raise type(io_output.pending_interrupt())()
+        return status
     except InputError as exc:
         if args.debug:
             raise
-        print(f"icgen {args.command}: error: {exc}", file=sys.stderr)
+        print(f"icgen {args.command}: error: {_one_line(exc)}", file=sys.stderr)
         return 2
-    except OSError as exc:
-        if args.debug:
+    except Exception as exc:  # noqa: BLE001 - only I/O failures are reported here, the rest re-raised
+        os_error = _os_error_in_chain(exc)
+        if args.debug or os_error is None:
             raise
-        where = f" {exc.filename}" if exc.filename else ""
-        print(f"icgen {args.command}: error: could not read or write{where}: {exc.strerror or exc}; "
+        where = f" {os_error.filename}" if os_error.filename else ""
+        # os.strerror: HDF5's own text spans lines and carries buffer addresses and times
+        reason = os.strerror(os_error.errno) if os_error.errno else (os_error.strerror or os_error)
+        print(f"icgen {args.command}: error: could not read or write{where}: {_one_line(reason)}; "
               "no partial output was left behind", file=sys.stderr)
         return 1
     except KeyboardInterrupt as exc:
@@ -92,6 +147,10 @@ def main(argv=None):
         return 143 if isinstance(exc, Terminated) else 130
     finally:
         signal.signal(signal.SIGTERM, previous)
+        if previous_int is signal.default_int_handler:
+            signal.signal(signal.SIGINT, previous_int)
+        sys.unraisablehook = previous_hook
+        io_output.note_interrupt(None)
 
 
 if __name__ == "__main__":  # pragma: no cover
