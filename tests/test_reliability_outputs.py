@@ -491,8 +491,6 @@ def test_table_outputs_store_version_cosmology_and_parameters(tmp_path):
         assert json.loads(a["cosmology"]) == params.cosmology.as_dict()
 
 
-@pytest.mark.xfail(strict=True, reason="known gap (issue 8 item 4): icgen spectrum's HDF5 output from a "
-                                       "table does not store input_table_sha256")
 def test_spectrum_output_from_a_table_stores_its_sha256(tmp_path):
     out = tmp_path / "pk.h5"
     code, _, stderr = run_cli(["spectrum", str(TABLE_PARAMS), "--out", str(out)])

@@ -1,7 +1,7 @@
 """``icgen advise-start``: displacement and density statistics versus redshift, and a start redshift."""
 
 from .. import io_output, plotting, start
-from .common import add_params_arguments, load_params
+from .common import add_params_arguments, load_params, provenance
 
 NAME = "advise-start"
 HELP = "tabulate grid displacement and density statistics versus z and recommend a start redshift"
@@ -38,6 +38,8 @@ def run(args):
         io_output.write_columns(args.out, {"z": adv.z, "sigma_delta": adv.sigma_delta,
                                            "rms_displacement_spacing": adv.rms_displacement,
                                            "max_displacement_spacing": adv.max_displacement},
+                                attrs={"format": "icgen.start_advice", **provenance(params), **adv.limits,
+                                       "z_start_1lpt": adv.z_start_1lpt, "z_start_2lpt": adv.z_start_2lpt},
                                 overwrite=args.overwrite)
         print(f"wrote {args.out}")
     if args.plot:

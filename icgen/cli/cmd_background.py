@@ -1,13 +1,12 @@
 """``icgen background``: tabulate a(t), H(a) and the growth factors of a cosmology."""
 
-import json
 import time
 
 import numpy as np
 
-from .. import __version__, background, io_output, plotting
+from .. import background, io_output, plotting
 from ..errors import InputError
-from .common import add_params_arguments, load_params
+from .common import add_params_arguments, load_params, provenance
 
 NAME = "background"
 HELP = "tabulate t(a), H(a), D1, f1, D2, f2 of the cosmology (CSV, or HDF5 for .h5)"
@@ -57,9 +56,7 @@ def run(args):
         raise InputError(f"--a-max = {args.a_max:g} is beyond the background: {why}")
     a = (np.linspace if args.linear else np.geomspace)(args.a_min, args.a_max, args.points)
     cols = table(bg, a)
-    attrs = {"format": "icgen.background", "created_by": f"icgen {__version__}",
-             "cosmology": json.dumps(cosmo.as_dict()), "parameters": params.to_toml(),
-             "fate": bg.fate}
+    attrs = {"format": "icgen.background", **provenance(params), "fate": bg.fate}
     io_output.write_columns(args.out, cols, units=COLUMNS, attrs=attrs, overwrite=args.overwrite)
     took = time.perf_counter() - t0
     fate = bg.fate.replace("_", " ")

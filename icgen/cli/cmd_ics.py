@@ -1,13 +1,12 @@
 """``icgen ics``: particle initial conditions (Zel'dovich or 2LPT) in one HDF5 file."""
 
-import hashlib
 import json
 import os
 import time
 import warnings
 
 from .. import background, decomp, io_hdf5, io_output, parallel, particles, pipeline
-from .common import add_params_arguments, load_params, progress_bar, warn_line
+from .common import add_params_arguments, load_params, progress_bar, provenance, warn_line
 
 NAME = "ics"
 HELP = "generate particle initial conditions (HDF5) from a parameter file"
@@ -71,11 +70,7 @@ def generate(params, out, overwrite=False, workers=None, quiet=False):
         growth, fields = pipeline.particle_fields(pk, bg, setup, a_start, workers,
                                                   progress=lambda stage: bar.update(1), layout=layout)
         mass = particles.particle_mass(cosmo.omega_m, setup.box_size, setup.n)
-        extra = {}
-        if params.get("spectrum", "source") == "table":
-            table = params.path("spectrum", "table")
-            extra["input_table"] = str(table)
-            extra["input_table_sha256"] = hashlib.sha256(table.read_bytes()).hexdigest()
+        extra = {k: v for k, v in provenance(params).items() if k.startswith("input_table")}
         if advice is not None:
             extra["start_rule"] = json.dumps({"rule": "auto (common practice, see icgen.start)",
                                               **advice.limits, "z_start_1lpt": advice.z_start_1lpt,

@@ -1,15 +1,14 @@
 """``icgen schedule``: output times, the integrator's step table and its measured growth error."""
 
-import json
 import sys
 import time
 from pathlib import Path
 
 import numpy as np
 
-from .. import __version__, background, growth_check, io_output, io_schedule, plotting, schedule
+from .. import background, growth_check, io_output, io_schedule, plotting, schedule
 from ..errors import InputError
-from .common import add_params_arguments, load_params
+from .common import add_params_arguments, load_params, provenance
 
 NAME = "schedule"
 HELP = ("snapshot times and the leapfrog step table (drift and kick integrals), "
@@ -98,8 +97,7 @@ def run(args):
         if bar is not None:
             bar.close()
     table, acc = plan.table, plan.accuracy
-    attrs = {"created_by": f"icgen {__version__}", "cosmology": json.dumps(cosmo.as_dict()),
-             "parameters": params.to_toml()}
+    attrs = provenance(params)
     written = io_schedule.write_schedule_outputs(args.out_dir, snaps, table, acc,
                                                  overwrite=args.overwrite,
                                                  table_format=args.format, attrs=attrs)

@@ -10,15 +10,14 @@ Output columns (CSV with one header line, or HDF5 datasets for .h5/.hdf5):
 P(k, z) = P(k, 0) D1(z)^2 with this cosmology's linear growth D1 (D1(z=0) = 1).
 """
 
-import json
 import time
 import warnings
 
 import numpy as np
 
-from .. import __version__, background, io_input, io_output, plotting, spectrum
+from .. import background, io_input, io_output, plotting, spectrum
 from ..errors import InputError
-from .common import add_params_arguments, load_params, warn_line
+from .common import provenance, add_params_arguments, load_params, warn_line
 
 NAME = "spectrum"
 HELP = ("tabulate the normalised linear P(k, z): k in h/Mpc, P in (Mpc/h)^3, and Delta^2 "
@@ -147,9 +146,7 @@ def run(args):
         warn_line(str(w.message))
     k = np.geomspace(k_min, k_max, args.points)
     cols, units = table(spec, k, args.z)
-    attrs = {"format": "icgen.spectrum", "created_by": f"icgen {__version__}",
-             "cosmology": json.dumps(cosmo.as_dict()), "parameters": params.to_toml(),
-             "source": spec.label, "normalisation": spec.normalisation,
+    attrs = {"format": "icgen.spectrum", **provenance(params), "source": spec.label, "normalisation": spec.normalisation,
              "sigma_8": spec.sigma_8, "k_min_table": spec.k_min, "k_max_table": spec.k_max}
     io_output.write_columns(args.out, cols, units=units, attrs=attrs, overwrite=args.overwrite)
     took = time.perf_counter() - t0

@@ -46,3 +46,21 @@ def warn_line(message):
     import sys
 
     print(f"icgen: warning: {message}", file=sys.stderr)
+
+
+def provenance(params):
+    """Attributes every output stores: package version, resolved cosmology, the parameters
+    that reproduce it, and (for a table spectrum) the table's path and SHA-256."""
+    import hashlib
+    import json
+
+    from .. import __version__
+
+    attrs = {"created_by": f"icgen {__version__}", "cosmology": json.dumps(params.cosmology.as_dict()),
+             "parameters": params.to_toml()}
+    if params.get("spectrum", "source") == "table" and params.get("spectrum", "table") is not None:
+        table = params.path("spectrum", "table")
+        if table.is_file():
+            attrs["input_table"] = str(table.resolve())
+            attrs["input_table_sha256"] = hashlib.sha256(table.read_bytes()).hexdigest()
+    return attrs
