@@ -230,18 +230,30 @@ def output_fields(modes, order, c_pos, c_vel, workers=None, progress=None):
         raise TypeError(f"modes must be DensityModes, got {type(modes).__name__}")
     if order not in (1, 2):
         raise ParameterError(f"lpt_order = {order!r}: allowed values are 1 and 2")
-    if order == 1:
-        disp = displacements(modes, 1, workers=workers, progress=progress, overwrite_modes=True)
-        psi = tuple(disp.psi_1)
-        del disp
-        yield "position", psi, c_pos[0]
-        yield "velocity", psi, c_vel[0]
-        return
     n, kf, iy0 = modes.n, modes.k_fundamental, modes.iy0
     layout = modes.layout if modes.layout is not None else Layout(n)
     tick = progress or (lambda stage: None)
     dk = modes.delta_k
     scratch = np.empty_like(dk)
+    if order == 1:
+        comps = []  # three separate arrays: no copy of each transform's output
+        for d in range(3):
+            if d == 2:  # the last transform reuses the modes' memory
+                del scratch
+                dk.flags.writeable = True
+                target = dk
+            else:
+                target = scratch
+            _kernels._derivative_modes(dk, n, 0, iy0, kf, d, -1, target)
+            comps.append(layout.inverse(target, workers))
+            del target
+            tick(f"psi_1[{d}]")
+        del dk, modes  # free the modes before the particles are written
+        psi = tuple(comps)
+        del comps
+        yield "position", psi, c_pos[0]
+        yield "velocity", psi, c_vel[0]
+        return
     source_k = _second_order_source_k(modes, layout, scratch, workers, tick)
     for kind, (c1, c2) in (("position", c_pos), ("velocity", c_vel)):
         field = []  # three separate arrays: no copy of each transform's output
@@ -255,7 +267,7 @@ def output_fields(modes, order, c_pos, c_vel, workers=None, progress=None):
                 target = scratch
             _kernels._gradient_combo(dk, c1, source_k, -c2, n, 0, iy0, kf, d, target)
             if last:
-                del source_k
+                del source_k, modes, dk
             field.append(layout.inverse(target, workers))
             del target
             tick(f"{kind}[{d}]")

@@ -9,7 +9,7 @@ import os
 
 from .errors import InputError
 
-__all__ = ["launched_size", "launched_rank", "world", "agree", "crc32_combine", "RankError"]
+__all__ = ["launched_size", "launched_rank", "world", "shared_memory_type", "agree", "crc32_combine", "RankError"]
 
 #: Environment variables through which MPI launchers announce the number of ranks
 #: (MPICH/Hydra and Intel MPI: PMI_SIZE; Open MPI: OMPI_COMM_WORLD_SIZE; Slurm: PMI/PMIX).
@@ -48,6 +48,13 @@ def world():
                          "pip install 'icgen[mpi]' (mpi4py and an MPI library)") from exc
     comm = MPI.COMM_WORLD
     return comm if comm.Get_size() > 1 else None
+
+
+def shared_memory_type():
+    """MPI.COMM_TYPE_SHARED (for splitting a communicator into the ranks of one node)."""
+    from mpi4py import MPI
+
+    return MPI.COMM_TYPE_SHARED
 
 
 class RankError(InputError):

@@ -5,7 +5,7 @@ import os
 import time
 import warnings
 
-from .. import background, decomp, io_hdf5, io_output, parallel, particles, pipeline
+from .. import background, decomp, io_hdf5, io_output, parallel, particles, pipeline, preflight
 from .common import add_params_arguments, load_params, progress_bar, provenance, warn_line
 
 NAME = "ics"
@@ -19,6 +19,9 @@ def add_arguments(p):
     p.add_argument("--workers", type=int, default=os.cpu_count(),
                    help="FFT threads (the output is identical for any value)")
     p.add_argument("--quiet", action="store_true", help="no progress bar")
+    p.add_argument("--max-memory", metavar="SIZE",
+                   help="refuse runs whose modelled peak memory per process exceeds SIZE (e.g. 20G); "
+                        "default: the memory available now")
 
 
 def prepare(params, quiet=False):
@@ -38,7 +41,7 @@ def prepare(params, quiet=False):
     return bg, pk, setup, a_start, advice
 
 
-def generate(params, out, overwrite=False, workers=None, quiet=False):
+def generate(params, out, overwrite=False, workers=None, quiet=False, max_memory=None):
     """Run the initial-condition pipeline and stream the particles into ``out``.
 
     Under MPI (``mpiexec -n R``) every rank computes its slab and writes a part
@@ -58,6 +61,9 @@ def generate(params, out, overwrite=False, workers=None, quiet=False):
             io_output.check_output_path(out, overwrite)
         bg, pk, setup, a_start, advice = prepare(params, quiet=comm is not None and comm.Get_rank() != 0)
         layout = decomp.Layout(setup.n, comm)
+        here = 1 if comm is None else comm.Split_type(parallel.shared_memory_type()).Get_size()
+        preflight.check(setup.n, setup.lpt_order, setup.dtype.name, setup.write_ids, out, layout.size,
+                        None if max_memory is None else preflight.parse_size(max_memory), here)
     except BaseException as exc:  # noqa: BLE001 - every rank must learn of it (parallel.agree)
         if comm is None:
             raise
@@ -115,7 +121,7 @@ def summary(info):
 
 def run(args):
     params = load_params(args)
-    info = generate(params, args.out, args.overwrite, args.workers, args.quiet)
+    info = generate(params, args.out, args.overwrite, args.workers, args.quiet, args.max_memory)
     if info["disp"] is not None:  # rank 0 (or a serial run) holds the statistics
         print(summary(info))
     return 0
