@@ -55,13 +55,14 @@ def generate(params, out, overwrite=False, workers=None, quiet=False, max_memory
     """
     comm = parallel.world()
     t0 = time.perf_counter()
+    # Ranks sharing this node's memory (a collective call: every rank makes it, before anything can fail).
+    here = 1 if comm is None else comm.Split_type(parallel.shared_memory_type()).Get_size()
     error = None
     try:
         if comm is None or comm.Get_rank() == 0:
             io_output.check_output_path(out, overwrite)
         bg, pk, setup, a_start, advice = prepare(params, quiet=comm is not None and comm.Get_rank() != 0)
         layout = decomp.Layout(setup.n, comm)
-        here = 1 if comm is None else comm.Split_type(parallel.shared_memory_type()).Get_size()
         preflight.check(setup.n, setup.lpt_order, setup.dtype.name, setup.write_ids, out, layout.size,
                         None if max_memory is None else preflight.parse_size(max_memory), here)
     except BaseException as exc:  # noqa: BLE001 - every rank must learn of it (parallel.agree)
