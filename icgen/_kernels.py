@@ -120,42 +120,16 @@ def _white_noise_slab(key0, key1, n, ix0, iy0, fixed, sign, amp_of_m2, out):
 
 
 @njit(cache=True, parallel=True)
-def _derivative_modes(src, n, ix0, iy0, kf, d1, d2, out):
-    """out = F(k) src for one operator, on the block starting at mode (ix0, iy0, 0); out may be src.
+def _fourier_operator(src1, a1, src2, a2, n, ix0, iy0, kf, d1, d2, out):
+    """out = F(k) (a1 src1 + a2 src2) on the block starting at mode (ix0, iy0, 0); out may be a source.
 
-    d2 < 0: first derivative over the Laplacian, F = i k_{d1} / k^2.
+    d2 < 0: first derivative over the Laplacian, F = i k_{d1} / k^2 (a displacement; with
+    psi_1(k) = i k delta/k^2 and psi_2(k) = -i k S/k^2, c1 psi_1 + c2 psi_2 is this with
+    src1 = delta, a1 = c1, src2 = S, a2 = -c2).
     d2 >= 0: second derivative over the Laplacian, F = k_{d1} k_{d2} / k^2.
-    Nyquist-plane modes and k = 0 get zero (the module's Nyquist treatment).
-    kf is the fundamental wavenumber 2 pi / L in h/Mpc.
-    """
-    half = n // 2
-    for i in prange(src.shape[0]):
-        ix = ix0 + i
-        kx = ix if ix < half else ix - n
-        for j in range(src.shape[1]):
-            iy = iy0 + j
-            ky = iy if iy < half else iy - n
-            for l in range(src.shape[2]):
-                kz = l
-                m2 = kx * kx + ky * ky + kz * kz
-                if kx == -half or ky == -half or kz == half or m2 == 0:
-                    out[i, j, l] = 0.0
-                    continue
-                k1 = kx if d1 == 0 else (ky if d1 == 1 else kz)
-                if d2 < 0:
-                    out[i, j, l] = src[i, j, l] * complex(0.0, k1 / (kf * m2))
-                else:
-                    k2 = kx if d2 == 0 else (ky if d2 == 1 else kz)
-                    out[i, j, l] = src[i, j, l] * (k1 * k2 / m2)
-
-
-@njit(cache=True, parallel=True)
-def _gradient_combo(src1, a1, src2, a2, n, ix0, iy0, kf, d, out):
-    """out = i k_d / k^2 (a1 src1 + a2 src2) on the block starting at mode (ix0, iy0, 0).
-
-    The displacement (or velocity) field of 2LPT in one transform: with psi_1(k) =
-    i k delta/k^2 and psi_2(k) = -i k S/k^2, c1 psi_1 + c2 psi_2 is this with
-    a1 = c1, a2 = -c2. Nyquist-plane modes and k = 0 get zero. kf = 2 pi / L.
+    Nyquist-plane modes and k = 0 get zero (the Nyquist treatment of icgen.field).
+    kf is the fundamental wavenumber 2 pi / L in h/Mpc. Pass a2 = 0 (and src2 = src1)
+    for a single source: a1 src1 + 0 src2 is src1 exactly for finite values.
     """
     half = n // 2
     for i in prange(out.shape[0]):
@@ -170,9 +144,13 @@ def _gradient_combo(src1, a1, src2, a2, n, ix0, iy0, kf, d, out):
                 if kx == -half or ky == -half or kz == half or m2 == 0:
                     out[i, j, l] = 0.0
                     continue
-                kd = kx if d == 0 else (ky if d == 1 else kz)
                 v = a1 * src1[i, j, l] + a2 * src2[i, j, l]
-                out[i, j, l] = v * complex(0.0, kd / (kf * m2))
+                k1 = kx if d1 == 0 else (ky if d1 == 1 else kz)
+                if d2 < 0:
+                    out[i, j, l] = v * complex(0.0, k1 / (kf * m2))
+                else:
+                    k2 = kx if d2 == 0 else (ky if d2 == 1 else kz)
+                    out[i, j, l] = v * (k1 * k2 / m2)
 
 
 @njit(cache=True, parallel=True)

@@ -152,9 +152,8 @@ def displacements(modes, order=2, workers=None, progress=None, overwrite_modes=F
         source_k = _second_order_source_k(modes, layout, scratch, workers, tick)
         psi_2 = np.empty((3, *real_shape), dtype=rdt)
         for d in range(3):
-            # psi_2(k) = -i k_d S_k / k^2: the kernel gives +i k_d/k^2, so negate.
-            _kernels._derivative_modes(source_k, n, 0, iy0, kf, d, -1, scratch)
-            np.negative(scratch, out=scratch)
+            # psi_2(k) = -i k_d S_k / k^2.
+            _kernels._fourier_operator(source_k, -1.0, source_k, 0.0, n, 0, iy0, kf, d, -1, scratch)
             psi_2[d] = _inverse(scratch, n, workers)
             tick(f"psi_2[{d}]")
         del source_k
@@ -166,7 +165,7 @@ def displacements(modes, order=2, workers=None, progress=None, overwrite_modes=F
             del scratch
             dk.flags.writeable = True  # the caller handed the modes over as scratch
             target = dk
-        _kernels._derivative_modes(dk, n, 0, iy0, kf, d, -1, target)
+        _kernels._fourier_operator(dk, 1.0, dk, 0.0, n, 0, iy0, kf, d, -1, target)
         psi_1[d] = _inverse(target, n, workers)
         del target
         tick(f"psi_1[{d}]")
@@ -179,14 +178,14 @@ def _second_order_source_k(modes, layout, scratch, workers, tick):
     # phi_1,ij = IFFT[k_i k_j delta_k / k^2].
     diag = []
     for d in range(3):
-        _kernels._derivative_modes(dk, n, 0, iy0, kf, d, d, scratch)
+        _kernels._fourier_operator(dk, 1.0, dk, 0.0, n, 0, iy0, kf, d, d, scratch)
         diag.append(layout.inverse(scratch, workers))
         tick(f"phi_{d}{d}")
     source = diag[0]
     _kernels._second_order_source_diag(diag[0], diag[1], diag[2], source)  # elementwise, in place
     del diag
     for d1, d2 in ((0, 1), (0, 2), (1, 2)):
-        _kernels._derivative_modes(dk, n, 0, iy0, kf, d1, d2, scratch)
+        _kernels._fourier_operator(dk, 1.0, dk, 0.0, n, 0, iy0, kf, d1, d2, scratch)
         _kernels._subtract_square(source, layout.inverse(scratch, workers))
         tick(f"phi_{d1}{d2}")
     source_k = layout.forward(source, workers)
@@ -244,7 +243,7 @@ def output_fields(modes, order, c_pos, c_vel, workers=None, progress=None):
                 target = dk
             else:
                 target = scratch
-            _kernels._derivative_modes(dk, n, 0, iy0, kf, d, -1, target)
+            _kernels._fourier_operator(dk, 1.0, dk, 0.0, n, 0, iy0, kf, d, -1, target)
             comps.append(layout.inverse(target, workers))
             del target
             tick(f"psi_1[{d}]")
@@ -265,7 +264,7 @@ def output_fields(modes, order, c_pos, c_vel, workers=None, progress=None):
                 target = dk
             else:
                 target = scratch
-            _kernels._gradient_combo(dk, c1, source_k, -c2, n, 0, iy0, kf, d, target)
+            _kernels._fourier_operator(dk, c1, source_k, -c2, n, 0, iy0, kf, d, -1, target)
             if last:
                 del source_k, modes, dk
             field.append(layout.inverse(target, workers))
