@@ -81,7 +81,7 @@ def run(args):
     out_dir = Path(args.out_dir)
     if out_dir.exists() and not out_dir.is_dir():
         raise InputError(f"--out-dir {out_dir} exists and is not a directory")
-    # The directory (and missing parents) is is created by the writer, once everything has been computed.
+    # The directory (and missing parents) is created by the writer, once everything has been computed.
     if args.plot:
         io_output.check_output_path(args.plot, args.overwrite)
     t0 = time.perf_counter()
