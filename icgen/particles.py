@@ -20,7 +20,7 @@ from .errors import ParameterError
 from .lpt import Displacements
 from .units import RHO_CRIT_100
 
-__all__ = ["ParticleSet", "at", "slabs", "field_slabs", "coefficients", "summarize", "particle_mass",
+__all__ = ["ParticleSet", "at", "field_slabs", "coefficients", "summarize", "particle_mass",
            "StartGrowth"]
 
 
@@ -110,7 +110,7 @@ def _check_dtype(dtype):
 
 
 def summarize(plane_stats):
-    """Displacement and velocity statistics from per-plane sums (see :func:`slabs`).
+    """Displacement and velocity statistics from per-plane sums (see :func:`field_slabs`).
 
     Parameters
     ----------
@@ -130,45 +130,6 @@ def summarize(plane_stats):
     mx = plane_stats.max(axis=0)
     return {"displacement": {"mean": tot[0] / count, "rms": float(np.sqrt(tot[1] / count)), "max": float(mx[2])},
             "velocity": {"mean": tot[3] / count, "rms": float(np.sqrt(tot[4] / count)), "max": float(mx[5])}}
-
-
-def slabs(growth, disp, dtype=np.float32, planes_per_slab=None):
-    """Positions and velocities slab by slab (a generator), for streaming output.
-
-    Parameters
-    ----------
-    growth : StartGrowth
-    disp : Displacements
-    dtype : {numpy.float32, numpy.float64}
-    planes_per_slab : int, optional
-        Grid planes (first index) per slab; default: about 2^21 particles per slab.
-
-    Yields
-    ------
-    row0 : int
-        First row of the slab, counted from the first plane held (the global row of
-        particle (i, j, k) is (i n + j) n + k; add disp.x0 n^2 for a rank's slab).
-    position, velocity : ndarray, shape (rows, 3)
-        As in :func:`at`; the buffers are reused between slabs (copy them to keep them).
-    plane_stats : ndarray, shape (planes, 6)
-        Per-plane sums for :func:`summarize`.
-    """
-    if not isinstance(disp, Displacements):
-        raise TypeError(f"disp must be Displacements, got {type(disp).__name__}")
-    dtype = _check_dtype(dtype)
-    n = disp.n
-    per = planes_per_slab or max(1, (1 << 21) // (n * n))
-    c = _coefficients(growth, disp)
-    psi2 = _psi2_or_empty(disp)
-    pos = np.empty((per * n * n, 3), dtype=dtype)
-    vel = np.empty((per * n * n, 3), dtype=dtype)
-    for i0 in range(0, disp.planes, per):
-        i1 = min(disp.planes, i0 + per)
-        rows = (i1 - i0) * n * n
-        stats = np.empty((i1 - i0, 6))
-        _kernels._particle_slab(disp.psi_1, psi2, i0, i1, disp.x0, c, disp.box_size, pos[:rows], vel[:rows],
-                                stats)
-        yield i0 * n * n, pos[:rows], vel[:rows], stats
 
 
 def coefficients(growth, order):
@@ -225,7 +186,7 @@ def field_slabs(kind, field, scale, x0, box_size, dtype=np.float32, planes_per_s
 
 
 def at(growth, disp, omega_m, dtype=np.float32, write_ids=True):
-    """Place the particles at the start (all in memory; see :func:`slabs` for streaming).
+    """Place the particles at the start (all in memory; see :func:`field_slabs` for streaming).
 
     Parameters
     ----------
@@ -254,7 +215,7 @@ def at(growth, disp, omega_m, dtype=np.float32, write_ids=True):
     vel = np.empty((n**3, 3), dtype=dtype)
     stats = np.empty((n, 6))
     if disp.planes != n:
-        raise ParameterError("particles.at needs the whole grid; stream a rank's slab with particles.slabs")
+        raise ParameterError("particles.at needs the whole grid; stream a rank's slab with particles.field_slabs")
     _kernels._particle_slab(disp.psi_1, _psi2_or_empty(disp), 0, n, 0, _coefficients(growth, disp), box,
                             pos, vel, stats)
     ids = np.arange(n**3, dtype=np.uint64) if write_ids else None
