@@ -91,17 +91,6 @@ class ParticleSet:
         return self.position.shape[0]
 
 
-def _coefficients(growth, disp):
-    """[c_pos1, c_pos2, c_vel1, c_vel2]: x = q + c_pos1 psi_1 + c_pos2 psi_2, v = c_vel1 psi_1 + c_vel2 psi_2."""
-    a_h = growth.a * growth.H / growth.h  # a H in km/s per (Mpc/h)
-    d2 = growth.D2 if disp.psi_2 is not None else 0.0
-    return np.array([growth.D1, d2, a_h * growth.f1 * growth.D1, a_h * growth.f2 * d2])
-
-
-def _psi2_or_empty(disp):
-    return disp.psi_2 if disp.psi_2 is not None else np.zeros((0, 0, 0, 0), dtype=disp.dtype)
-
-
 def _check_dtype(dtype):
     dtype = np.dtype(dtype)
     if dtype not in (np.float32, np.float64):
@@ -211,13 +200,22 @@ def at(growth, disp, omega_m, dtype=np.float32, write_ids=True):
         raise TypeError(f"disp must be Displacements, got {type(disp).__name__}")
     dtype = _check_dtype(dtype)
     n, box = disp.n, disp.box_size
-    pos = np.empty((n**3, 3), dtype=dtype)
-    vel = np.empty((n**3, 3), dtype=dtype)
-    stats = np.empty((n, 6))
     if disp.planes != n:
         raise ParameterError("particles.at needs the whole grid; stream a rank's slab with particles.field_slabs")
-    _kernels._particle_slab(disp.psi_1, _psi2_or_empty(disp), 0, n, 0, _coefficients(growth, disp), box,
-                            pos, vel, stats)
+    out = {"position": np.empty((n**3, 3), dtype=dtype), "velocity": np.empty((n**3, 3), dtype=dtype)}
+    stats = {}
+    for kind, (c1, c2) in zip(("position", "velocity"), coefficients(growth, disp.order)):
+        if disp.psi_2 is None:  # first order: the field itself, scaled in the kernel
+            field, scale = tuple(disp.psi_1), c1
+        else:  # second order: the two orders summed in real space, in float64
+            field, scale = tuple(c1 * disp.psi_1.astype(np.float64) + c2 * disp.psi_2), 1.0
+        planes = []
+        for row0, block, st in field_slabs(kind, field, scale, 0, box, dtype, planes_per_slab=n):
+            out[kind][row0:row0 + block.shape[0]] = block
+            planes.append(st)
+        stats[kind] = np.concatenate(planes)
+    pos, vel = out["position"], out["velocity"]
     ids = np.arange(n**3, dtype=np.uint64) if write_ids else None
     return ParticleSet(position=pos, velocity=vel, id=ids, mass=particle_mass(omega_m, box, n),
-                       box_size=box, growth=growth, lpt_order=disp.order, stats=summarize(stats))
+                       box_size=box, growth=growth, lpt_order=disp.order,
+                       stats=summarize(np.concatenate([stats["position"], stats["velocity"]], axis=1)))
