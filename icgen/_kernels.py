@@ -153,7 +153,7 @@ def _fourier_operator(src1, a1, src2, a2, n, ix0, iy0, kf, d1, d2, out):
                     out[i, j, l] = v * (k1 * k2 / m2)
 
 
-@njit(cache=True, parallel=True)
+@njit(cache=True, parallel=True, nogil=True)
 def _position_slab(fx, fy, fz, scale, i0, i1, gx, box_size, out, plane_stats):
     """out = (q + scale f_d) mod L for local planes i0 <= i < i1 (global plane gx + i).
 
@@ -196,7 +196,7 @@ def _position_slab(fx, fy, fz, scale, i0, i1, gx, box_size, out, plane_stats):
         plane_stats[r, 2] = mx
 
 
-@njit(cache=True, parallel=True)
+@njit(cache=True, parallel=True, nogil=True)
 def _velocity_slab(fx, fy, fz, scale, i0, i1, out, plane_stats):
     """out = scale f_d for local planes i0 <= i < i1, with per-plane sums as in _position_slab."""
     n = fx.shape[2]

@@ -133,7 +133,8 @@ def coefficients(growth, order):
     return (growth.D1, d2), (a_h * growth.f1 * growth.D1, a_h * growth.f2 * d2)
 
 
-def field_slabs(kind, field, scale, x0, box_size, dtype=np.float32, planes_per_slab=None):
+def field_slabs(kind, field, scale, x0, box_size, dtype=np.float32, planes_per_slab=None,
+                rows_per_block=1 << 21, buffers=1):
     """Positions or velocities from one field, slab by slab (a generator), for streaming output.
 
     Parameters
@@ -148,22 +149,29 @@ def field_slabs(kind, field, scale, x0, box_size, dtype=np.float32, planes_per_s
         L in Mpc/h.
     dtype : {numpy.float32, numpy.float64}
     planes_per_slab : int, optional
+        Planes per block (default: as many as fit in ``rows_per_block`` rows, at least one).
+    rows_per_block : int
+        Target rows per block.
+    buffers : int
+        Output buffers used in turn: a block stays valid until ``buffers - 1`` more have
+        been yielded (2 lets a writer thread drain one while the next is computed).
 
     Yields
     ------
     row0 : int
         First row of the slab, counted from the field's first plane.
     block : ndarray, shape (rows, 3)
-        Positions in [0, L) (Mpc/h) or velocities (km/s); the buffer is reused.
+        Positions in [0, L) (Mpc/h) or velocities (km/s); the buffers are reused in turn.
     plane_stats : ndarray, shape (planes, 3)
         Sum, sum of squares and max |.| of the displacement or velocity components.
     """
     dtype = _check_dtype(dtype)
     fx, fy, fz = field
     planes, n = fx.shape[0], fx.shape[2]
-    per = planes_per_slab or max(1, (1 << 21) // (n * n))
-    buf = np.empty((per * n * n, 3), dtype=dtype)
-    for i0 in range(0, planes, per):
+    per = planes_per_slab or max(1, rows_per_block // (n * n))
+    bufs = [np.empty((min(per, planes) * n * n, 3), dtype=dtype) for _ in range(max(1, buffers))]
+    for b, i0 in enumerate(range(0, planes, per)):
+        buf = bufs[b % len(bufs)]
         i1 = min(planes, i0 + per)
         rows = (i1 - i0) * n * n
         stats = np.empty((i1 - i0, 3))

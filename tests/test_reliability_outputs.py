@@ -176,6 +176,32 @@ def test_full_disk_during_ics_leaves_nothing(tmp_path, full_disk, limit):
     assert _listing(tmp_path) == []
 
 
+@pytest.mark.parametrize("limit", [0, 5000, N16_DATA // 2])
+def test_full_disk_in_the_writer_thread_leaves_nothing(tmp_path, monkeypatch, limit):
+    """The particle data go to their allocated offsets with os.pwrite from a worker thread
+    (io_hdf5._DirectWriter); a disk that fills up there must end the run as any other write
+    failure does: exit 1, one line naming the file and ENOSPC, nothing left behind."""
+    real_pwrite, state = os.pwrite, {"written": 0, "refused": 0}
+
+    def pwrite(fd, data, offset):
+        n = memoryview(data).nbytes
+        if state["written"] + n > limit:
+            state["refused"] += 1
+            raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))
+        state["written"] += n
+        return real_pwrite(fd, data, offset)
+
+    monkeypatch.setattr(os, "pwrite", pwrite)
+    out = tmp_path / "ics.h5"
+    code, stdout, stderr = run_cli(["ics", "--out", str(out), "--quiet"] + SMALL)
+    line = _one_line(stderr)
+    assert code == 1, stderr
+    assert line.startswith("icgen ics: error: could not read or write"), line
+    assert "No space left on device" in line and "no partial output was left behind" in line
+    assert state["refused"] == 1            # the first refusal ended the run
+    assert _listing(tmp_path) == []
+
+
 @pytest.mark.parametrize("command, out_name, limit", [
     ("background", "bg.csv", 0), ("background", "bg.csv", 500), ("background", "bg.csv", 20_000),
     ("background", "bg.h5", 0), ("background", "bg.h5", 3000), ("background", "bg.h5", 30_000),
@@ -269,8 +295,10 @@ def test_interrupt_128_cubed_mid_write(tmp_path, signum, status, word):
         while time.monotonic() - t0 < 300:
             partial = list(out_dir.glob(".ics128.h5.*.partial"))
             if partial:
+                # Bytes actually stored: the datasets are allocated at creation, so the file has
+                # its full length (a sparse file) before any particle is written.
                 with contextlib.suppress(FileNotFoundError):
-                    size = partial[0].stat().st_size
+                    size = partial[0].stat().st_blocks * 512
                 if size > 1 << 20:   # data are being written
                     break
             if proc.poll() is not None:
