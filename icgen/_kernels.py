@@ -91,25 +91,54 @@ def _white_noise_slab(key0, key1, n, ix0, iy0, fixed, sign, amp_of_m2, out):
     <|W|^2> = 1. Fixed amplitude: W = (u + i v)/sqrt(s), the same phase with |W| = 1.
     ``sign`` is +1, or -1 for the paired realisation (every phase shifted by pi).
     Values are computed in float64 and rounded once on store.
+
+    Each row of constant (kx, ky) first makes every mode's first attempt in a loop
+    without rejection branches (which the compiler can pipeline), then finishes the few
+    rejected modes and the amplitudes: the same numbers as drawing mode by mode.
     """
     half = n // 2
     nz = out.shape[2]
     for i in prange(out.shape[0]):
         ix = ix0 + i
         kx = ix if ix < half else ix - n
+        first_u = np.empty(nz)
+        first_v = np.empty(nz)
+        first_s = np.empty(nz)
         for j in range(out.shape[1]):
             iy = iy0 + j
             ky = iy if iy < half else iy - n
+            # The canonical member of each pair: (kx, ky, kz), or (-kx, -ky, 0) on the kz = 0 plane.
+            flip0 = not (ky > 0 or (ky == 0 and kx > 0))
+            c0p = np.uint64(kx) & _MASK32
+            c1p = np.uint64(ky) & _MASK32
+            c0m = np.uint64(-kx) & _MASK32
+            c1m = np.uint64(-ky) & _MASK32
+            for l in range(nz):  # attempt 0 of every mode (as in _mode_disk_point)
+                flip = l == 0 and flip0
+                r0, r1, r2, r3 = _philox4x32_10(c0m if flip else c0p, c1m if flip else c1p, np.uint64(l),
+                                                np.uint64(0), key0, key1)
+                ia = np.int64(r0 >> np.uint64(5)) * 67108864 + np.int64(r1 >> np.uint64(6))
+                ib = np.int64(r2 >> np.uint64(5)) * 67108864 + np.int64(r3 >> np.uint64(6))
+                u = ia * _TWO_M52 - 1.0
+                v = ib * _TWO_M52 - 1.0
+                first_u[l] = u
+                first_v[l] = v
+                first_s[l] = u * u + v * v
             for l in range(nz):
                 kz = l
                 if kx == -half or ky == -half or kz == half or (kx == 0 and ky == 0 and kz == 0):
                     out[i, j, l] = 0.0
                     continue
                 canonical = kz > 0 or ky > 0 or (ky == 0 and kx > 0)
-                if canonical:
-                    u, v, s = _mode_disk_point(kx, ky, kz, key0, key1)
-                else:
-                    u, v, s = _mode_disk_point(-kx, -ky, kz, key0, key1)
+                u = first_u[l]
+                v = first_v[l]
+                s = first_s[l]
+                if not (0.0 < s < 1.0):  # rejected: the later attempts, as drawn mode by mode
+                    if canonical:
+                        u, v, s = _mode_disk_point(kx, ky, kz, key0, key1)
+                    else:
+                        u, v, s = _mode_disk_point(-kx, -ky, kz, key0, key1)
+                if not canonical:
                     v = -v
                 if fixed:
                     f = 1.0 / np.sqrt(s)
