@@ -20,8 +20,8 @@ from dataclasses import dataclass
 from functools import cached_property
 
 import numpy as np
-from scipy.interpolate import CubicHermiteSpline
 
+from ._interp import CubicHermite
 from .errors import ParameterError
 
 __all__ = [
@@ -147,7 +147,7 @@ class _Growth(Spacing):
             raise ParameterError("spacing = 'growth' needs D1 > 0 increasing over the whole "
                                  "background; this model's D1 is not (use 'log_a' or 'time')")
         ln_d1 = np.log(bg.d1)
-        return CubicHermiteSpline(ln_d1, bg.ln_a, bg.d1 / bg.d1p)
+        return CubicHermite(ln_d1, bg.ln_a, bg.d1 / bg.d1p)
 
     def s(self, a):
         return self.bg.D1(a)

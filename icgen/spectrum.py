@@ -61,8 +61,8 @@ from dataclasses import dataclass
 from functools import cached_property
 
 import numpy as np
-from scipy.interpolate import CubicSpline
 
+from ._interp import clamped_cubic_spline
 from .background import BackgroundTable
 from .cosmology import Cosmology
 from .errors import ParameterError
@@ -606,11 +606,7 @@ class LinearSpectrum:
 
     @cached_property
     def _spline(self):
-        return CubicSpline(self.ln_k, self.ln_p0, bc_type=((1, self.slope_lo), (1, self.slope_hi)))
-
-    @cached_property
-    def _dspline(self):
-        return self._spline.derivative()
+        return clamped_cubic_spline(self.ln_k, self.ln_p0, self.slope_lo, self.slope_hi)
 
     # ---- evaluation --------------------------------------------------------------
     def _ln_p0_of_ln_k(self, lk):
@@ -620,7 +616,7 @@ class LinearSpectrum:
 
     def _dln_p_of_ln_k(self, lk):
         lo, hi = self.ln_k[0], self.ln_k[-1]
-        d = self._dspline(np.clip(lk, lo, hi))
+        d = self._spline(np.clip(lk, lo, hi), nu=1)
         return np.where(lk < lo, self.slope_lo, np.where(lk > hi, self.slope_hi, d))
 
     def _growth(self, z):
