@@ -21,6 +21,7 @@ import os
 import sys
 
 from concurrent.futures import ThreadPoolExecutor
+from dataclasses import dataclass
 from pathlib import Path
 
 import h5py
@@ -29,7 +30,7 @@ import numpy as np
 from . import __version__
 from .io_output import atomic_path
 
-__all__ = ["FORMAT", "FORMAT_VERSION", "REQUIRED_ATTRS", "write_particles", "write_particles_streamed",
+__all__ = ["Filters", "FORMAT", "FORMAT_VERSION", "REQUIRED_ATTRS", "write_particles", "write_particles_streamed",
            "read_particles", "checksum", "verify_file", "write_particles_parts", "part_path"]
 
 #: Root attributes every particle file carries.
@@ -158,7 +159,7 @@ def _write_attrs(f, attrs):
 
 
 def write_particles(path, parts, parameters_toml, cosmology, seed, fixed_amplitude=False,
-                    paired=False, overwrite=False, extra_attrs=None):
+                    paired=False, overwrite=False, extra_attrs=None, filters=None):
     """Write an in-memory ParticleSet to ``path`` atomically (temporary name, then rename).
 
     Parameters
@@ -174,6 +175,8 @@ def write_particles(path, parts, parameters_toml, cosmology, seed, fixed_amplitu
         Replace an existing file.
     extra_attrs : dict, optional
         More root attributes.
+    filters : Filters, optional
+        HDF5 compression and checksum filters (default none).
     """
     n = round(parts.n_particles ** (1 / 3))
     attrs = _root_attrs(parts.growth, parts.box_size, n, parts.mass, parts.lpt_order, parameters_toml,
@@ -186,7 +189,8 @@ def write_particles(path, parts, parameters_toml, cosmology, seed, fixed_amplitu
                 arr = getattr(parts, name)
                 if arr is None:
                     continue
-                ds = grp.create_dataset(name, data=arr)
+                opts = filters.dataset_options(arr.shape[0], arr.shape) if filters is not None and filters.any else {}
+                ds = grp.create_dataset(name, data=arr, **opts)
                 ds.attrs["units"] = UNITS[name]
                 ds.attrs["checksum_crc32"] = np.uint32(checksum(arr))
         _verify_or_raise(tmp, attrs)
@@ -197,16 +201,59 @@ def write_particles(path, parts, parameters_toml, cosmology, seed, fixed_amplitu
 _BLOCK_ROWS = 1 << 20
 
 
-def _create_particle_datasets(grp, rows, dtype, write_ids):
-    """Create /particles/{position, velocity[, id]} for ``rows`` particles, contiguous and allocated now.
+#: Rows per chunk of a filtered (compressed or checksummed) dataset; _BLOCK_ROWS is a multiple,
+#: so every block fills whole chunks (no chunk is read back and rewritten).
+_CHUNK_ROWS = 1 << 17
 
-    The data are written later straight to their byte offsets (:class:`_DirectWriter`),
-    so the datasets are allocated at creation and never filled with a fill value.
+
+@dataclass(frozen=True)
+class Filters:
+    """HDF5 filters of the particle datasets (none by default: contiguous, written directly).
+
+    Parameters
+    ----------
+    compression : {"none", "gzip"}
+        "gzip": the HDF5 deflate filter after the byte shuffle filter (lossless).
+    level : int
+        Deflate level, 1 (fast) to 9 (small).
+    fletcher32 : bool
+        Add the HDF5 Fletcher-32 checksum filter to every chunk (checked by HDF5 on read).
+    """
+
+    compression: str = "none"
+    level: int = 4
+    fletcher32: bool = False
+
+    def __post_init__(self):
+        if self.compression not in ("none", "gzip"):
+            raise ValueError(f"compression = {self.compression!r}: allowed values are 'none' and 'gzip'")
+        if not 1 <= self.level <= 9:
+            raise ValueError(f"compression level = {self.level!r} is outside the allowed range [1, 9]")
+
+    @property
+    def any(self):
+        return self.compression != "none" or self.fletcher32
+
+    def dataset_options(self, rows, shape):
+        """Keyword arguments of h5py's create_dataset for a filtered dataset of ``rows`` rows."""
+        opts = {"chunks": (max(1, min(rows, _CHUNK_ROWS)),) + tuple(shape[1:]), "fletcher32": self.fletcher32}
+        if self.compression == "gzip":
+            opts.update(compression="gzip", compression_opts=self.level, shuffle=True)
+        return opts
+
+
+def _create_particle_datasets(grp, rows, dtype, write_ids, filters=None):
+    """Create /particles/{position, velocity[, id]} for ``rows`` particles.
+
+    Without filters the datasets are contiguous and allocated at creation, and the data are
+    written later straight to their byte offsets (:class:`_DirectWriter`), never filled
+    with a fill value. With filters (:class:`Filters`) they are chunked and written
+    through HDF5, which applies the filters chunk by chunk.
 
     Returns
     -------
     dict
-        name -> (byte offset in the file or None for an empty dataset, bytes per row).
+        name -> (byte offset in the file, or None for an empty or filtered dataset, bytes per row).
     """
     targets = {}
     dcpl = h5py.h5p.create(h5py.h5p.DATASET_CREATE)
@@ -217,11 +264,16 @@ def _create_particle_datasets(grp, rows, dtype, write_ids):
         kinds.append(("id", np.dtype(np.uint64), (rows,)))
     for name, dt, shape in kinds:
         dt = dt.newbyteorder("<")  # the bytes written are little-endian (checksum's convention)
-        dsid = h5py.h5d.create(grp.id, name.encode(), h5py.h5t.py_create(dt), h5py.h5s.create_simple(shape),
-                               dcpl=dcpl)
-        ds = h5py.Dataset(dsid)
+        if filters is not None and filters.any:
+            ds = grp.create_dataset(name, shape=shape, dtype=dt, **filters.dataset_options(rows, shape))
+            offset = None
+        else:
+            dsid = h5py.h5d.create(grp.id, name.encode(), h5py.h5t.py_create(dt), h5py.h5s.create_simple(shape),
+                                   dcpl=dcpl)
+            ds = h5py.Dataset(dsid)
+            offset = ds.id.get_offset()
         ds.attrs["units"] = UNITS[name]
-        targets[name] = (ds.id.get_offset(), int(np.prod(shape[1:], dtype=np.int64)) * dt.itemsize)
+        targets[name] = (offset, int(np.prod(shape[1:], dtype=np.int64)) * dt.itemsize)
     return targets
 
 
@@ -239,14 +291,17 @@ class _DirectWriter:
     path : str or Path
         The HDF5 file, already created and closed, whose datasets are allocated.
     targets : dict
-        name -> (byte offset, bytes per row), from :func:`_create_particle_datasets`.
+        name -> (byte offset, bytes per row), from :func:`_create_particle_datasets`; an
+        offset of None means a filtered dataset, written through HDF5 (the file is then
+        opened with h5py instead, and the worker takes the GIL while HDF5 compresses).
     """
 
     def __init__(self, path, targets):
         self.path = str(path)
         self.crc = dict.fromkeys(targets, 0)
         self._targets = targets
-        self._fd = os.open(self.path, os.O_WRONLY)
+        self._h5 = h5py.File(self.path, "r+") if any(t[0] is None for t in targets.values()) else None
+        self._fd = os.open(self.path, os.O_WRONLY) if self._h5 is None else None
         self._pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="icgen-writer")
         self._pending = collections.deque()
         self._failed = False
@@ -256,7 +311,10 @@ class _DirectWriter:
 
     def __exit__(self, *exc):
         self._pool.shutdown(wait=True, cancel_futures=True)
-        os.close(self._fd)
+        if self._h5 is not None:
+            self._h5.close()
+        else:
+            os.close(self._fd)
 
     def submit(self, name, row0, block):
         """Queue ``block`` (rows from ``row0``); it must not change until the next :meth:`drain` that passes it."""
@@ -271,6 +329,14 @@ class _DirectWriter:
         if self._failed:  # a write already failed: the run is ending, write nothing more
             return
         offset, row_bytes = self._targets[name]
+        if offset is None:
+            try:
+                self._h5["particles"][name][row0:row0 + block.shape[0]] = block
+            except OSError:
+                self._failed = True
+                raise
+            self.crc[name] = checksum(block, self.crc[name])
+            return
         if sys.byteorder != "little":  # pragma: no cover - every supported platform is little-endian
             block = block.astype(block.dtype.newbyteorder("<"))
         data = memoryview(np.ascontiguousarray(block)).cast("B")
@@ -293,16 +359,25 @@ def _stream_fields(path, targets, fields, x0, n, box_size, dtype, write_ids, row
     from . import particles  # the numerical core; imported here to keep this module light
 
     stats = {}
+    fields = iter(fields)
     with _DirectWriter(path, targets) as out:
-        for kind, field, scale in fields:
-            blocks = []
-            for row0, block, st in particles.field_slabs(kind, field, scale, x0, box_size, dtype,
-                                                         rows_per_block=_BLOCK_ROWS, buffers=2):
-                out.submit(kind, row0, block)
-                out.drain(keep=1)  # the other buffer is free again before the generator refills it
-                blocks.append(st)
-            stats[kind] = np.concatenate(blocks)
-            del field  # let the generator free it before it computes the next field
+        try:
+            for kind, field, scale in fields:
+                blocks = []
+                for row0, block, st in particles.field_slabs(kind, field, scale, x0, box_size, dtype,
+                                                             rows_per_block=_BLOCK_ROWS, buffers=2):
+                    out.submit(kind, row0, block)
+                    out.drain(keep=1)  # the other buffer is free again before the generator refills it
+                    blocks.append(st)
+                stats[kind] = np.concatenate(blocks)
+                del field  # let the generator free it before it computes the next field
+        except Exception:
+            # A failed write (a full disk, say): in a distributed run the other ranks are about to
+            # transform the next field with this one, so take part in the remaining transforms
+            # without writing, then fail (the ranks agree on failures afterwards).
+            for kind, field, scale in fields:
+                del field
+            raise
         if write_ids:
             rows_total = stats["position"].shape[0] * n * n
             for r0 in range(0, rows_total, _BLOCK_ROWS):
@@ -314,6 +389,14 @@ def _stream_fields(path, targets, fields, x0, n, box_size, dtype, write_ids, row
     return crc, np.concatenate([stats["position"], stats["velocity"]], axis=1)
 
 
+def _check_stored_checksums(path, crc, label):
+    """Raise OSError unless every dataset's stored ``checksum_crc32`` reads back as ``crc[name]``."""
+    with h5py.File(path, "r") as f:
+        for name, value in crc.items():
+            if int(f["particles"][name].attrs["checksum_crc32"]) != value:
+                raise OSError(f"{label}: checksum of {name} did not read back")
+
+
 def _store_checksums(path, crc):
     """Write each dataset's CRC-32 as its ``checksum_crc32`` attribute."""
     with h5py.File(path, "r+") as f:
@@ -323,7 +406,7 @@ def _store_checksums(path, crc):
 
 def write_particles_streamed(path, growth, fields, n, box_size, order, mass, dtype, write_ids,
                              parameters_toml, cosmology, seed, fixed_amplitude=False, paired=False,
-                             overwrite=False, extra_attrs=None):
+                             overwrite=False, extra_attrs=None, filters=None):
     """Write the particles field by field and slab by slab (peak memory: three fields).
 
     Parameters
@@ -339,6 +422,8 @@ def write_particles_streamed(path, growth, fields, n, box_size, order, mass, dty
         Particle mass in Msun/h.
     dtype, write_ids, parameters_toml, cosmology, seed, fixed_amplitude, paired, overwrite, extra_attrs
         As in :func:`write_particles`.
+    filters : Filters, optional
+        HDF5 compression and checksum filters (default none).
 
     Returns
     -------
@@ -352,7 +437,7 @@ def write_particles_streamed(path, growth, fields, n, box_size, order, mass, dty
     with atomic_path(path, overwrite) as tmp:
         with h5py.File(tmp, "w") as f:
             _write_attrs(f, attrs)
-            targets = _create_particle_datasets(f.create_group("particles"), n**3, dtype, write_ids)
+            targets = _create_particle_datasets(f.create_group("particles"), n**3, dtype, write_ids, filters)
         crc, planes = _stream_fields(tmp, targets, fields, 0, n, box_size, dtype, write_ids, 0)
         _store_checksums(tmp, crc)
         _verify_or_raise(tmp, attrs)
@@ -375,7 +460,7 @@ def part_path(path, rank, size):
 
 def write_particles_parts(path, growth, fields, layout, box_size, order, mass, dtype, write_ids,
                           parameters_toml, cosmology, seed, fixed_amplitude=False, paired=False,
-                          overwrite=False, extra_attrs=None):
+                          overwrite=False, extra_attrs=None, filters=None):
     """Distributed output: every rank writes its slab to a part file; rank 0 writes ``path``,
     whose /particles/* are HDF5 virtual datasets over the parts (same layout as a serial file).
 
@@ -417,13 +502,10 @@ def write_particles_parts(path, growth, fields, layout, box_size, order, mass, d
         with h5py.File(tmp, "w") as f:
             _write_attrs(f, {**attrs, "part_rank": rank, "part_count": size, "part_first_row": row_start,
                              "part_rows": rows})
-            targets = _create_particle_datasets(f.create_group("particles"), rows, dtype, write_ids)
+            targets = _create_particle_datasets(f.create_group("particles"), rows, dtype, write_ids, filters)
         crc, planes = _stream_fields(tmp, targets, fields, layout.x0, n, box_size, dtype, write_ids, row_start)
         _store_checksums(tmp, crc)
-        with h5py.File(tmp, "r") as f:  # read back before anything is renamed
-            for name in ("position", "velocity") + (("id",) if write_ids else ()):
-                if int(f["particles"][name].attrs["checksum_crc32"]) != crc[name]:
-                    raise OSError(f"{mine}: checksum of {name} did not read back")
+        _check_stored_checksums(tmp, crc, mine)  # read back before anything is renamed
     except BaseException as exc:  # noqa: BLE001
         error = exc
     try:

@@ -116,6 +116,10 @@ SCHEMA = {
         "precision": Key("choice", "float32", choices=("float32", "float64"),
                          doc="floating type of positions and velocities"),
         "write_ids": Key("bool", True, doc="write /particles/id"),
+        "compression": Key("choice", "none", choices=("none", "gzip"),
+                           doc="HDF5 filter of the particle datasets: none, or gzip (deflate after byte shuffle)"),
+        "compression_level": Key("int", 4, 1, 9, doc="deflate level of compression = 'gzip', 1 (fast) to 9"),
+        "fletcher32": Key("bool", False, doc="add HDF5's Fletcher-32 checksum filter to every chunk"),
     },
     "snapshots": {
         "a_begin": Key("float", None, 1e-8, 100.0, nullable=True,

@@ -5,7 +5,8 @@ import os
 import time
 import warnings
 
-from .. import background, decomp, io_hdf5, io_output, parallel, particles, pipeline, preflight
+from .. import background, decomp, io_hdf5, io_hdf5_collective, io_output, parallel, particles, pipeline, preflight
+from ..errors import InputError
 from .common import add_params_arguments, load_params, progress_bar, provenance, warn_line
 
 NAME = "ics"
@@ -22,6 +23,9 @@ def add_arguments(p):
     p.add_argument("--max-memory", metavar="SIZE",
                    help="refuse runs whose modelled peak memory per process exceeds SIZE (e.g. 20G); "
                         "default: the memory available now")
+    p.add_argument("--single-file", action="store_true",
+                   help="under MPI, write one file collectively (needs h5py built with MPI) instead of "
+                        "a part file per rank plus a master file")
 
 
 def prepare(params, quiet=False):
@@ -41,18 +45,43 @@ def prepare(params, quiet=False):
     return bg, pk, setup, a_start, advice
 
 
-def generate(params, out, overwrite=False, workers=None, quiet=False, max_memory=None):
+def output_filters(params):
+    """The HDF5 filters asked for in [output] (compression, compression_level, fletcher32)."""
+    return io_hdf5.Filters(compression=params.get("output", "compression"),
+                           level=params.get("output", "compression_level"),
+                           fletcher32=params.get("output", "fletcher32"))
+
+
+def check_single_file(filters):
+    """Refuse ``--single-file`` at once (every rank alike) where it cannot work."""
+    if filters.any:
+        raise InputError("--single-file writes uncompressed datasets only: set [output] compression = "
+                         "\"none\" and fletcher32 = false, or leave --single-file out to write part files")
+    if not any(v in os.environ for v in parallel._SIZE_VARIABLES):
+        raise InputError("--single-file applies to MPI runs (mpiexec -n R icgen ics ...); "
+                         "a run without MPI always writes one file")
+    if not io_hdf5_collective.available():
+        raise InputError("--single-file needs h5py built with MPI (parallel HDF5), and this h5py is a serial "
+                         "build; see the README section on MPI, or leave the option out to write part files")
+
+
+def generate(params, out, overwrite=False, workers=None, quiet=False, max_memory=None, single_file=False):
     """Run the initial-condition pipeline and stream the particles into ``out``.
 
     Under MPI (``mpiexec -n R``) every rank computes its slab and writes a part
     file; ``out`` is then a master file of virtual datasets over the parts
-    (:func:`icgen.io_hdf5.write_particles_parts`). Collective in that case.
+    (:func:`icgen.io_hdf5.write_particles_parts`), or with ``single_file`` one file
+    that all ranks write together (:func:`icgen.io_hdf5_collective.write_particles_collective`,
+    h5py built with MPI). Collective in that case.
 
     Returns
     -------
     dict
         Summary figures (see :func:`summary`); on ranks other than 0 the statistics are None.
     """
+    filters = output_filters(params)
+    if single_file:
+        check_single_file(filters)
     comm = parallel.world()
     t0 = time.perf_counter()
     # Ranks sharing this node's memory (a collective call: every rank makes it, before anything can fail).
@@ -84,10 +113,11 @@ def generate(params, out, overwrite=False, workers=None, quiet=False, max_memory
                                               "z_start_2lpt": advice.z_start_2lpt})
         common = dict(parameters_toml=params.to_toml(), cosmology=cosmo, seed=setup.seed,
                       fixed_amplitude=setup.fixed_amplitude, paired=setup.paired, overwrite=overwrite,
-                      extra_attrs=extra)
+                      extra_attrs=extra, filters=filters)
         if layout.distributed:
-            stats = io_hdf5.write_particles_parts(out, growth, fields, layout, setup.box_size, setup.lpt_order,
-                                                  mass, setup.dtype, setup.write_ids, **common)
+            write = io_hdf5_collective.write_particles_collective if single_file else io_hdf5.write_particles_parts
+            stats = write(out, growth, fields, layout, setup.box_size, setup.lpt_order, mass, setup.dtype,
+                          setup.write_ids, **common)
         else:
             stats = io_hdf5.write_particles_streamed(out, growth, fields, setup.n, setup.box_size,
                                                      setup.lpt_order, mass, setup.dtype, setup.write_ids,
@@ -95,6 +125,7 @@ def generate(params, out, overwrite=False, workers=None, quiet=False, max_memory
         bar.update(1)
     info = {"out": str(out), "bg": bg, "pk": pk, "n": setup.n, "box_size": setup.box_size,
             "order": setup.lpt_order, "mass": mass, "growth": growth, "ranks": layout.size,
+            "single_file": single_file,
             "disp": stats["displacement"] if stats else None, "vel": stats["velocity"] if stats else None,
             "seconds": time.perf_counter() - t0}
     return info
@@ -105,6 +136,7 @@ def summary(info):
     g, n, box = info["growth"], info["n"], info["box_size"]
     spacing = box / n
     d, v = info["disp"], info["vel"]
+    files = "one file written collectively" if info.get("single_file") else "one part file each"
     return "\n".join([
         f"wrote {info['out']}",
         f"  particles      {n}^3 = {n**3:,} in a {box:g} Mpc/h box (spacing {spacing:.4g} Mpc/h), "
@@ -115,14 +147,14 @@ def summary(info):
         f"  displacement   rms per component {d['rms']:.4g} Mpc/h = {d['rms'] / spacing:.3f} spacing; "
         f"max {d['max']:.4g} Mpc/h = {d['max'] / spacing:.3f} spacing; mean {d['mean']:.2e} Mpc/h",
         f"  velocity       rms per component {v['rms']:.4g} km/s, max {v['max']:.4g} km/s",
-        f"  time           {info['seconds']:.2f} s" + (f" on {info['ranks']} MPI ranks (one part file each)"
+        f"  time           {info['seconds']:.2f} s" + (f" on {info['ranks']} MPI ranks ({files})"
                                                      if info.get("ranks", 1) > 1 else ""),
     ])
 
 
 def run(args):
     params = load_params(args)
-    info = generate(params, args.out, args.overwrite, args.workers, args.quiet, args.max_memory)
+    info = generate(params, args.out, args.overwrite, args.workers, args.quiet, args.max_memory, args.single_file)
     if info["disp"] is not None:  # rank 0 (or a serial run) holds the statistics
         print(summary(info))
     return 0
