@@ -260,10 +260,12 @@ def test_real_write_failure_in_a_subprocess(tmp_path, argv, name):
 #: write phase of a 128^3 file then lasts seconds instead of a fraction of one, so the
 #: signal reliably lands while the temporary file is being written.
 SLOW_WRITE = """
-import sys, time
+import os, sys, time
 import icgen.io_hdf5 as h
 _checksum = h.checksum
 def checksum(*args, **kwargs):
+    with open(os.environ["ICGEN_TEST_WRITES"], "a") as log:  # one line per block written
+        log.write("block\\n")
     time.sleep(0.5)
     return _checksum(*args, **kwargs)
 h.checksum = checksum
@@ -285,27 +287,28 @@ def test_interrupt_128_cubed_mid_write(tmp_path, signum, status, word):
     out_dir.mkdir()
     out = out_dir / "ics128.h5"
     n = 128
-    full_size = n**3 * (3 * 4 + 3 * 4 + 8)
+    # The file is allocated at its full size before any particle is written (io_hdf5), so its
+    # size says nothing; the slowed checksum logs each block instead. 128^3 makes 6 blocks of
+    # 2^20 rows (positions, velocities, ids: 2 each), each held 0.5 s.
+    writes = tmp_path / "writes.log"
+    blocks_total = 6
     proc = subprocess.Popen(
         [sys.executable, "-c", SLOW_WRITE, "ics", "--out", str(out), "--quiet",
          "--set", f"box.particles_per_side={n}", "--set", "box.size=200.0", "--workers", "2"],
-        stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, preexec_fn=_default_signals)
+        stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, preexec_fn=_default_signals,
+        env=dict(os.environ, ICGEN_TEST_WRITES=str(writes)))
     try:
-        size, t0 = 0, time.monotonic()
+        blocks, t0 = 0, time.monotonic()
         while time.monotonic() - t0 < 300:
-            partial = list(out_dir.glob(".ics128.h5.*.partial"))
-            if partial:
-                # Bytes actually stored: the datasets are allocated at creation, so the file has
-                # its full length (a sparse file) before any particle is written.
-                with contextlib.suppress(FileNotFoundError):
-                    size = partial[0].stat().st_blocks * 512
-                if size > 1 << 20:   # data are being written
-                    break
+            with contextlib.suppress(FileNotFoundError):
+                blocks = writes.read_text().count("block")
+            if blocks >= 1 and list(out_dir.glob(".ics128.h5.*.partial")):   # data are being written
+                break
             if proc.poll() is not None:
                 break
             time.sleep(0.005)
         assert proc.poll() is None, f"finished before the signal: {proc.communicate()}"
-        assert 0 < size < full_size, size   # mid-write: some but not all of the data
+        assert 0 < blocks < blocks_total, blocks   # mid-write: some but not all of the data
         proc.send_signal(signum)
         stdout, stderr = proc.communicate(timeout=120)
     finally:
