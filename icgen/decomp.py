@@ -149,10 +149,19 @@ class Layout:
 
     # ---- transforms -------------------------------------------------------------
     def inverse(self, field_k, workers=None):
-        """Real x-slab from this rank's half-spectrum y-slab (``field_k`` is destroyed)."""
+        """Real x-slab from this rank's half-spectrum y-slab (``field_k`` is destroyed).
+
+        ``field_k`` may also be a one-element list holding the caller's only reference to
+        the spectrum: the list is emptied, and in a distributed run the spectrum is freed
+        as soon as the transpose has read it, so it is not alive beside the transpose's
+        output during the last two passes (one half spectrum less at the peak).
+        """
+        if isinstance(field_k, list):
+            field_k = field_k.pop()
         if not self.distributed:
             return _fft.inverse_real_3d(field_k, self.n, workers)
         x = _fft.inverse_pass_x(field_k, workers)
+        del field_k
         b = self._to_x_slabs(x)
         del x
         return _fft.inverse_pass_yz(b, self.n, workers)
