@@ -9,7 +9,7 @@ import os
 
 from .errors import InputError
 
-__all__ = ["launched_size", "launched_rank", "world", "shared_memory_type", "agree", "crc32_combine", "RankError"]
+__all__ = ["launched_size", "launched_by_mpi", "launched_rank", "world", "shared_memory_type", "agree", "crc32_combine", "RankError"]
 
 #: Environment variables through which MPI launchers announce the number of ranks
 #: (MPICH/Hydra and Intel MPI: PMI_SIZE; Open MPI: OMPI_COMM_WORLD_SIZE; Slurm: PMI/PMIX).
@@ -23,6 +23,11 @@ def launched_size():
         if value and value.isdigit():
             return int(value)
     return 1
+
+
+def launched_by_mpi():
+    """True when an MPI launcher started this process (even as a single rank, ``mpiexec -n 1``)."""
+    return any(var in os.environ for var in _SIZE_VARIABLES)
 
 
 _RANK_VARIABLES = ("PMI_RANK", "OMPI_COMM_WORLD_RANK", "PMIX_RANK", "MV2_COMM_WORLD_RANK")

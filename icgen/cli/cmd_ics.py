@@ -57,7 +57,7 @@ def check_single_file(filters):
     if filters.any:
         raise InputError("--single-file writes uncompressed datasets only: set [output] compression = "
                          "\"none\" and fletcher32 = false, or leave --single-file out to write part files")
-    if not any(v in os.environ for v in parallel._SIZE_VARIABLES):
+    if not parallel.launched_by_mpi():
         raise InputError("--single-file applies to MPI runs (mpiexec -n R icgen ics ...); "
                          "a run without MPI always writes one file")
     if not io_hdf5_collective.available():
