@@ -212,7 +212,8 @@ def inspect_initial_conditions(attrs, data, bg=None, target=None, n_mesh=None, k
     n_mesh : int, optional
         Estimator mesh (default twice the particle grid).
     k_max : float, optional
-        Largest k compared, h/Mpc (default half the particle Nyquist wavenumber).
+        Largest k compared, h/Mpc (default half the particle Nyquist wavenumber, and at most
+        a quarter of the mesh's, so a coarser mesh compares fewer bins).
     p_threshold : float, default 1e-3
         Smallest chi^2 probability accepted.
     workers : int, optional
@@ -393,7 +394,9 @@ def inspect_initial_conditions(attrs, data, bg=None, target=None, n_mesh=None, k
     else:
         n_est = n_mesh or 2 * n_side
         kf = 2.0 * np.pi / box
-        k_top = k_max if k_max is not None else 0.5 * np.pi * n_side / box
+        # Half the particle Nyquist wavenumber, and at most a quarter of the mesh's (the range where
+        # the estimator was checked, with the default mesh of twice the particle grid).
+        k_top = k_max if k_max is not None else min(0.5 * np.pi * n_side / box, 0.25 * np.pi * n_est / box)
         n_edges = int(np.floor(k_top / kf - 0.5)) + 1
         edges = power.default_k_edges(box, n_est)[:max(n_edges, 2)]
         z = 1.0 / a - 1.0

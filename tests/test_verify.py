@@ -279,3 +279,30 @@ def test_cli_end_to_end_with_correct_and_weakened_kicks(tmp_path, capsys):
         out = capsys.readouterr().out
         print(out)
         assert ("verdict: PASS" if want == 0 else "verdict: FAIL") in out
+
+
+def test_inspect_mesh_falls_back_to_the_particle_grid_when_memory_is_short():
+    # The interlaced estimator holds ~26 n_mesh^3 bytes (a float64 mesh and two complex128 half
+    # spectra, icgen.power.mesh_modes); a 512^3 file's default mesh of 1024^3 needed more than
+    # this 24 GB machine has (the run was killed), so inspect falls back to the particle grid.
+    from icgen.cli.cmd_inspect import default_mesh
+
+    data = 4.3e9  # 512^3 positions, velocities (float32) and ids
+    assert default_mesh(512, data, None) == 1024            # unknown memory: the default
+    assert default_mesh(512, data, 23e9) == 512             # 28 GB + data would not fit
+    assert default_mesh(512, data, 64e9) == 1024
+    assert default_mesh(64, 2.1e6, 23e9) == 128
+
+
+def test_a_coarser_mesh_compares_up_to_a_quarter_of_its_nyquist(ics64, capsys):
+    # Half the particle Nyquist wavenumber with the default mesh (twice the grid) is a quarter of
+    # the mesh's; with a mesh equal to the grid the comparison stops at a quarter of its Nyquist
+    # (100 Mpc/h, 64^3: pi 64 / 400 = 0.503 h/Mpc, against 1.005 with the default mesh), in bins
+    # of width k_f = 0.0628 h/Mpc whose last edge stays below it: 7 bins to 0.471, 15 to 0.974.
+    _, path = ics64
+    assert main(["inspect", str(path), "--mesh", "64"]) == 0
+    out = capsys.readouterr().out
+    assert "PASS  P(k)                   7 bins k = 0.0314..0.471 h/Mpc" in out, out
+    assert main(["inspect", str(path)]) == 0
+    out = capsys.readouterr().out
+    assert "PASS  P(k)                   15 bins k = 0.0314..0.974 h/Mpc" in out, out

@@ -3,7 +3,7 @@
 import time
 import warnings
 
-from .. import background, io_hdf5, io_output, parameters, plotting, verify
+from .. import background, io_hdf5, io_output, parameters, plotting, preflight, verify
 from ..errors import InputError
 from .common import warn_line
 
@@ -18,7 +18,8 @@ def add_arguments(p):
                    help="parameter file giving cosmology and target spectrum (default: the file's own "
                         "'parameters' attribute)")
     p.add_argument("--mesh", type=int, default=None,
-                   help="estimator mesh per side (default: twice the particle grid)")
+                   help="estimator mesh per side (default: twice the particle grid, or the grid itself "
+                        "where the finer mesh would not fit in the memory available)")
     p.add_argument("--k-max", type=float, default=None,
                    help="largest k compared, h/Mpc (default: half the particle Nyquist wavenumber)")
     p.add_argument("--plot", metavar="FILE.png", help="draw the measured and target P(k)")
@@ -115,6 +116,19 @@ def verdict_line(checks):
     return f"verdict: PASS ({n_pass} passed, {n_skip} skipped)"
 
 
+def default_mesh(n_side, data_bytes, available):
+    """Estimator mesh: twice the particle grid if it fits in ``available`` bytes, else the grid.
+
+    The interlaced estimator (:func:`icgen.power.mesh_modes`) holds a float64 mesh and two
+    complex128 half spectra at once, about 26 n_mesh^3 bytes, beside the particle data and
+    the float64 displacements the other checks make (counted as twice the data).
+    """
+    fine = 2 * n_side
+    if available is None or 26 * fine**3 + 2 * data_bytes <= 0.9 * available:
+        return fine
+    return n_side
+
+
 def run(args):
     if args.plot:
         io_output.check_output_path(args.plot, args.overwrite)
@@ -125,7 +139,15 @@ def run(args):
     params, bg, pk, why = target_for(attrs, args.params)
     if pk is None:
         warn_line(f"no target spectrum ({why}); the spectrum checks are skipped")
-    res = verify.inspect_initial_conditions(attrs, data, bg, pk, n_mesh=args.mesh, k_max=args.k_max,
+    n_mesh = args.mesh
+    n_side = int(attrs.get("grid_per_side", 0) or 0)
+    if n_mesh is None and n_side >= 4:
+        n_mesh = default_mesh(n_side, sum(v.nbytes for v in data.values() if hasattr(v, "nbytes")),
+                              preflight.available_memory())
+        if n_mesh == n_side:
+            warn_line(f"estimator mesh {n_mesh}^3 (twice the grid would not fit in the memory available); "
+                      "P(k) is compared up to a quarter of its Nyquist wavenumber")
+    res = verify.inspect_initial_conditions(attrs, data, bg, pk, n_mesh=n_mesh, k_max=args.k_max,
                                             workers=args.workers)
     # Integrity: stored CRC-32 of every dataset recomputed, parts of a distributed file present.
     problems = io_hdf5.verify_file(args.file, full=True)
