@@ -361,24 +361,21 @@ class _DirectWriter:
         if self._failed:  # a write already failed: the run is ending, write nothing more
             return
         offset, row_bytes = self._targets[name]
-        if offset is None:
-            try:
-                self._h5["particles"][name][row0:row0 + block.shape[0]] = block
-            except OSError:
-                self._failed = True
-                raise
-            self.crc[name] = checksum(block, self.crc[name])
-            return
-        if sys.byteorder != "little":  # pragma: no cover - every supported platform is little-endian
-            block = block.astype(block.dtype.newbyteorder("<"))
-        data = memoryview(np.ascontiguousarray(block)).cast("B")
-        pos = offset + row0 * row_bytes
         try:
-            while data.nbytes:
-                done = os.pwrite(self._fd, data, pos)
-                data, pos = data[done:], pos + done
+            if offset is None:  # a filtered dataset: through HDF5
+                self._h5["particles"][name][row0:row0 + block.shape[0]] = block
+            else:
+                if sys.byteorder != "little":  # pragma: no cover - every supported platform is little-endian
+                    block = block.astype(block.dtype.newbyteorder("<"))
+                data = memoryview(np.ascontiguousarray(block)).cast("B")
+                pos = offset + row0 * row_bytes
+                while data.nbytes:
+                    done = os.pwrite(self._fd, data, pos)
+                    data, pos = data[done:], pos + done
         except OSError as exc:
             self._failed = True
+            if offset is None:
+                raise
             raise OSError(exc.errno, exc.strerror, self.path) from None
         self.crc[name] = checksum(block, self.crc[name])
 

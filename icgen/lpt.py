@@ -141,33 +141,28 @@ def displacements(modes, order=2, workers=None, progress=None, overwrite_modes=F
     tick = progress or (lambda stage: None)
     dk = modes.delta_k
     rdt = np.float32 if dk.dtype == np.complex64 else np.float64
-    scratch = np.empty_like(dk)
+    scratch = _Scratch(dk, layout)
     real_shape = layout.real_shape
-
-    def _inverse(field_k, n, workers):
-        return layout.inverse(field_k, workers)
 
     psi_2 = None
     if order == 2:
-        source_k = _second_order_source_k(modes, layout, _Scratch(dk, layout), workers, tick)
+        source_k = _second_order_source_k(modes, layout, scratch, workers, tick)
         psi_2 = np.empty((3, *real_shape), dtype=rdt)
         for d in range(3):
             # psi_2(k) = -i k_d S_k / k^2.
-            _kernels._fourier_operator(source_k, -1.0, source_k, 0.0, n, 0, iy0, kf, d, -1, scratch)
-            psi_2[d] = _inverse(scratch, n, workers)
+            psi_2[d] = scratch.inverse(layout, workers, source_k, -1.0, source_k, 0.0, n, iy0, kf, d, -1)
             tick(f"psi_2[{d}]")
         del source_k
 
     psi_1 = np.empty((3, *real_shape), dtype=rdt)
     for d in range(3):
-        target = scratch
-        if d == 2 and overwrite_modes:
-            del scratch
-            dk.flags.writeable = True  # the caller handed the modes over as scratch
-            target = dk
-        _kernels._fourier_operator(dk, 1.0, dk, 0.0, n, 0, iy0, kf, d, -1, target)
-        psi_1[d] = _inverse(target, n, workers)
-        del target
+        if d == 2 and overwrite_modes:  # the caller handed the modes over as scratch
+            scratch.release()
+            dk.flags.writeable = True
+            _kernels._fourier_operator(dk, 1.0, dk, 0.0, n, 0, iy0, kf, d, -1, dk)
+            psi_1[d] = layout.inverse(dk, workers)
+        else:
+            psi_1[d] = scratch.inverse(layout, workers, dk, 1.0, dk, 0.0, n, iy0, kf, d, -1)
         tick(f"psi_1[{d}]")
     return Displacements(psi_1=psi_1, psi_2=psi_2, box_size=modes.box_size, x0=layout.x0)
 
