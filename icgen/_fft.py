@@ -12,8 +12,8 @@ result bit for bit. Normalisation is that of ``norm="forward"`` (see :mod:`icgen
 
 import scipy.fft as sfft
 
-__all__ = ["inverse_real_3d", "forward_real_3d", "inverse_pass_x", "inverse_pass_yz",
-           "forward_pass_zy", "forward_pass_x"]
+__all__ = ["inverse_real_3d", "forward_real_3d", "inverse_pass_x", "inverse_pass_y", "inverse_pass_z",
+           "inverse_pass_yz", "forward_pass_zy", "forward_pass_x"]
 
 
 def inverse_pass_x(field_k, workers=None):
@@ -21,10 +21,23 @@ def inverse_pass_x(field_k, workers=None):
     return sfft.ifft(field_k, axis=0, norm="forward", workers=workers, overwrite_x=True)
 
 
+def inverse_pass_y(field_k, workers=None):
+    """Inverse complex transform along axis 1 of x-slabs, in place (``field_k`` is overwritten)."""
+    return sfft.ifft(field_k, axis=1, norm="forward", workers=workers, overwrite_x=True)
+
+
+def inverse_pass_z(field_k, n, workers=None):
+    """Inverse complex-to-real transform along axis 2 (a new real array; ``field_k`` is kept).
+
+    Each line along axis 2 is transformed on its own, so any block of x planes gives
+    the same numbers as the whole array (the slab-by-slab output relies on it).
+    """
+    return sfft.irfft(field_k, n=n, axis=2, norm="forward", workers=workers)
+
+
 def inverse_pass_yz(field_k, n, workers=None):
     """Inverse transforms along axis 1 (complex) and 2 (to real) of x-slabs; input destroyed."""
-    x = sfft.ifft(field_k, axis=1, norm="forward", workers=workers, overwrite_x=True)
-    return sfft.irfft(x, n=n, axis=2, norm="forward", workers=workers)
+    return inverse_pass_z(inverse_pass_y(field_k, workers), n, workers)
 
 
 def forward_pass_zy(field, workers=None):

@@ -182,76 +182,104 @@ def _fourier_operator(src1, a1, src2, a2, n, ix0, iy0, kf, d1, d2, out):
                     out[i, j, l] = v * (k1 * k2 / m2)
 
 
+@njit(cache=True, inline="always")
+def _position_plane(fx, fy, fz, scale, i, r, gx, box_size, out, plane_stats):
+    """Plane i of the fields (global plane gx + i) into rows r n^2 ... (r + 1) n^2 - 1 of out.
+
+    out = (q + scale f_d) mod L; plane_stats[r] = sum, sum of squares and max |.| of the
+    displacement components scale field[d] (float64, fixed order within the plane).
+    """
+    n = fx.shape[2]
+    spacing = box_size / n
+    s = 0.0
+    s2 = 0.0
+    mx = 0.0
+    qx = (gx + i) * spacing
+    for j in range(n):
+        qy = j * spacing
+        row = (r * n + j) * n
+        for k in range(n):
+            p = row + k
+            for d in range(3):
+                if d == 0:
+                    disp = scale * np.float64(fx[i, j, k])
+                    q = qx
+                elif d == 1:
+                    disp = scale * np.float64(fy[i, j, k])
+                    q = qy
+                else:
+                    disp = scale * np.float64(fz[i, j, k])
+                    q = k * spacing
+                out[p, d] = _wrap(q + disp, box_size)
+                if out[p, d] >= box_size:
+                    out[p, d] = 0.0
+                s += disp
+                s2 += disp * disp
+                mx = max(mx, abs(disp))
+    plane_stats[r, 0] = s
+    plane_stats[r, 1] = s2
+    plane_stats[r, 2] = mx
+
+
+@njit(cache=True, inline="always")
+def _velocity_plane(fx, fy, fz, scale, i, r, out, plane_stats):
+    """out = scale f_d for plane i into rows r n^2 ..., with per-plane sums as in _position_plane."""
+    n = fx.shape[2]
+    s = 0.0
+    s2 = 0.0
+    mx = 0.0
+    for j in range(n):
+        row = (r * n + j) * n
+        for k in range(n):
+            p = row + k
+            for d in range(3):
+                if d == 0:
+                    v = scale * np.float64(fx[i, j, k])
+                elif d == 1:
+                    v = scale * np.float64(fy[i, j, k])
+                else:
+                    v = scale * np.float64(fz[i, j, k])
+                out[p, d] = v
+                s += v
+                s2 += v * v
+                mx = max(mx, abs(v))
+    plane_stats[r, 0] = s
+    plane_stats[r, 1] = s2
+    plane_stats[r, 2] = mx
+
+
 @njit(cache=True, parallel=True, nogil=True)
 def _position_slab(fx, fy, fz, scale, i0, i1, gx, box_size, out, plane_stats):
-    """out = (q + scale f_d) mod L for local planes i0 <= i < i1 (global plane gx + i).
+    """out = (q + scale f_d) mod L for local planes i0 <= i < i1 (global plane gx + i), on all threads.
 
     fx, fy, fz: the three components, each (planes, n, n).
     Row ((i - i0) n + j) n + k of out is the particle at grid index (gx + i, j, k).
     plane_stats[i - i0] = sum, sum of squares and max |.| of the displacement
     components scale field[d] (float64, fixed order within the plane).
     """
-    n = fx.shape[2]
-    spacing = box_size / n
     for i in prange(i0, i1):
-        s = 0.0
-        s2 = 0.0
-        mx = 0.0
-        qx = (gx + i) * spacing
-        for j in range(n):
-            qy = j * spacing
-            row = ((i - i0) * n + j) * n
-            for k in range(n):
-                p = row + k
-                for d in range(3):
-                    if d == 0:
-                        disp = scale * np.float64(fx[i, j, k])
-                        q = qx
-                    elif d == 1:
-                        disp = scale * np.float64(fy[i, j, k])
-                        q = qy
-                    else:
-                        disp = scale * np.float64(fz[i, j, k])
-                        q = k * spacing
-                    out[p, d] = _wrap(q + disp, box_size)
-                    if out[p, d] >= box_size:
-                        out[p, d] = 0.0
-                    s += disp
-                    s2 += disp * disp
-                    mx = max(mx, abs(disp))
-        r = i - i0
-        plane_stats[r, 0] = s
-        plane_stats[r, 1] = s2
-        plane_stats[r, 2] = mx
+        _position_plane(fx, fy, fz, scale, i, i - i0, gx, box_size, out, plane_stats)
+
+
+@njit(cache=True, nogil=True)
+def _position_block(fx, fy, fz, scale, i0, i1, gx, box_size, out, plane_stats):
+    """As _position_slab, on the calling thread alone (for callers that run blocks side by side)."""
+    for i in range(i0, i1):
+        _position_plane(fx, fy, fz, scale, i, i - i0, gx, box_size, out, plane_stats)
 
 
 @njit(cache=True, parallel=True, nogil=True)
 def _velocity_slab(fx, fy, fz, scale, i0, i1, out, plane_stats):
     """out = scale f_d for local planes i0 <= i < i1, with per-plane sums as in _position_slab."""
-    n = fx.shape[2]
     for i in prange(i0, i1):
-        s = 0.0
-        s2 = 0.0
-        mx = 0.0
-        for j in range(n):
-            row = ((i - i0) * n + j) * n
-            for k in range(n):
-                p = row + k
-                for d in range(3):
-                    if d == 0:
-                        v = scale * np.float64(fx[i, j, k])
-                    elif d == 1:
-                        v = scale * np.float64(fy[i, j, k])
-                    else:
-                        v = scale * np.float64(fz[i, j, k])
-                    out[p, d] = v
-                    s += v
-                    s2 += v * v
-                    mx = max(mx, abs(v))
-        r = i - i0
-        plane_stats[r, 0] = s
-        plane_stats[r, 1] = s2
-        plane_stats[r, 2] = mx
+        _velocity_plane(fx, fy, fz, scale, i, i - i0, out, plane_stats)
+
+
+@njit(cache=True, nogil=True)
+def _velocity_block(fx, fy, fz, scale, i0, i1, out, plane_stats):
+    """As _velocity_slab, on the calling thread alone."""
+    for i in range(i0, i1):
+        _velocity_plane(fx, fy, fz, scale, i, i - i0, out, plane_stats)
 
 
 @njit(cache=True, parallel=True)

@@ -166,6 +166,30 @@ class Layout:
         del x
         return _fft.inverse_pass_yz(b, self.n, workers)
 
+    def inverse_xy(self, field_k, workers=None):
+        """This rank's complex x-slab of the spectrum transformed back along axes 0 and 1.
+
+        The last pass, complex-to-real along axis 2 (:func:`icgen._fft.inverse_pass_z`),
+        is left to the caller, who can run it a few planes at a time: each line is
+        transformed on its own, so the real planes are bit-identical to those of
+        :meth:`inverse`. ``field_k`` is destroyed; it may be a one-element list, as in
+        :meth:`inverse`.
+
+        Returns
+        -------
+        ndarray, complex, shape (x1 - x0, n, n//2 + 1)
+        """
+        if isinstance(field_k, list):
+            field_k = field_k.pop()
+        x = _fft.inverse_pass_x(field_k, workers)
+        del field_k
+        if self.distributed:
+            b = self._to_x_slabs(x)
+            del x
+        else:
+            b = x
+        return _fft.inverse_pass_y(b, workers)
+
     def forward(self, field, workers=None):
         """Half-spectrum y-slab of this rank from its real x-slab (``field`` is kept)."""
         if not self.distributed:

@@ -15,10 +15,10 @@ values as little-endian bytes in row-major order):
   /particles/id        (n^3,)   uint64           (i n + j) n + k on the Lagrangian grid
 """
 
-import collections
 import json
 import os
 import sys
+import threading
 
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
@@ -41,8 +41,11 @@ REQUIRED_ATTRS = ("format", "format_version", "created_by", "parameters", "cosmo
 
 try:  # the same CRC-32 as zlib's (ISO 3309 polynomial), about 6x faster; releases the GIL
     from isal.isal_zlib import crc32 as _crc32
+    from isal.isal_zlib import crc32_combine as _crc32_combine
 except ImportError:  # pragma: no cover - python-isal is a dependency; zlib is the fallback
     from zlib import crc32 as _crc32
+
+    from .parallel import crc32_combine as _crc32_combine
 
 
 def checksum(values, crc=0):
@@ -197,8 +200,8 @@ def write_particles(path, parts, parameters_toml, cosmology, seed, fixed_amplitu
     return path
 
 
-#: Rows of particles per block handed to the writer thread (two blocks are alive at a time).
-_BLOCK_ROWS = 1 << 20
+#: Rows of particles per block: each lane (:func:`_write_field`) holds one block per kind.
+_BLOCK_ROWS = 1 << 19
 
 
 #: Rows per chunk of a filtered (compressed or checksummed) dataset; _BLOCK_ROWS is a multiple,
@@ -246,7 +249,7 @@ def _create_particle_datasets(grp, rows, dtype, write_ids, filters=None):
     """Create /particles/{position, velocity[, id]} for ``rows`` particles.
 
     Without filters the datasets are contiguous and allocated at creation, and the data are
-    written later straight to their byte offsets (:class:`_DirectWriter`), never filled
+    written later straight to their byte offsets (:class:`_BlockWriter`), never filled
     with a fill value. With filters (:class:`Filters`) they are chunked and written
     through HDF5, which applies the filters chunk by chunk.
 
@@ -302,14 +305,14 @@ def _preallocate(fd, size, path):
             raise OSError(err, os.strerror(err), path)
 
 
-class _DirectWriter:
-    """Write row blocks of contiguous datasets at their file offsets from one worker thread.
+class _BlockWriter:
+    """Thread-safe writes of row blocks into the allocated datasets of a closed file.
 
-    ``os.pwrite`` and the CRC-32 release the GIL, so the next block is computed while
-    this one goes to the page cache. Blocks are written and checksummed in the order
-    they are submitted (one worker), so the running CRC-32 of each dataset is that of
-    its rows in order. A failed write re-raises in the submitting thread at the next
-    :meth:`drain`; leaving the context waits for the worker and closes the file.
+    Unfiltered datasets are written straight to their byte offsets with ``os.pwrite``
+    (into blocks reserved by :func:`_preallocate`); filtered ones through HDF5, which
+    applies the filters chunk by chunk. One write at a time (a lock; the kernel
+    serialises writes to one file anyway), so after the first failure no other block is
+    written: the failure re-raises in its caller, and later writes raise at once.
 
     Parameters
     ----------
@@ -317,14 +320,14 @@ class _DirectWriter:
         The HDF5 file, already created and closed, whose datasets are allocated.
     targets : dict
         name -> (byte offset, bytes per row), from :func:`_create_particle_datasets`; an
-        offset of None means a filtered dataset, written through HDF5 (the file is then
-        opened with h5py instead, and the worker takes the GIL while HDF5 compresses).
+        offset of None means a filtered dataset (the file is then opened with h5py).
     """
 
     def __init__(self, path, targets):
         self.path = str(path)
-        self.crc = dict.fromkeys(targets, 0)
         self._targets = targets
+        self._lock = threading.Lock()
+        self._failed = None
         self._h5 = h5py.File(self.path, "r+") if any(t[0] is None for t in targets.values()) else None
         self._fd = None
         if self._h5 is None:
@@ -334,37 +337,31 @@ class _DirectWriter:
             except BaseException:
                 os.close(self._fd)
                 raise
-        self._pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="icgen-writer")
-        self._pending = collections.deque()
-        self._failed = False
 
     def __enter__(self):
         return self
 
     def __exit__(self, *exc):
-        self._pool.shutdown(wait=True, cancel_futures=True)
         if self._h5 is not None:
             self._h5.close()
         else:
             os.close(self._fd)
 
-    def submit(self, name, row0, block):
-        """Queue ``block`` (rows from ``row0``); it must not change until the next :meth:`drain` that passes it."""
-        self._pending.append(self._pool.submit(self._write, name, row0, block))
+    @property
+    def error(self):
+        """The first write error (None while every write succeeded)."""
+        return self._failed
 
-    def drain(self, keep=0):
-        """Wait until at most ``keep`` submitted blocks are still in flight."""
-        while len(self._pending) > keep:
-            self._pending.popleft().result()
-
-    def _write(self, name, row0, block):
-        if self._failed:  # a write already failed: the run is ending, write nothing more
-            return
+    def write(self, name, row0, block):
+        """Write ``block`` as rows row0, row0 + 1, ... of dataset ``name``."""
         offset, row_bytes = self._targets[name]
-        try:
-            if offset is None:  # a filtered dataset: through HDF5
-                self._h5["particles"][name][row0:row0 + block.shape[0]] = block
-            else:
+        with self._lock:
+            if self._failed is not None:  # the run is ending: write nothing more
+                raise self._failed
+            try:
+                if offset is None:  # a filtered dataset: through HDF5
+                    self._h5["particles"][name][row0:row0 + block.shape[0]] = block
+                    return
                 if sys.byteorder != "little":  # pragma: no cover - every supported platform is little-endian
                     block = block.astype(block.dtype.newbyteorder("<"))
                 data = memoryview(np.ascontiguousarray(block)).cast("B")
@@ -372,50 +369,108 @@ class _DirectWriter:
                 while data.nbytes:
                     done = os.pwrite(self._fd, data, pos)
                     data, pos = data[done:], pos + done
-        except OSError as exc:
-            self._failed = True
-            if offset is None:
-                raise
-            raise OSError(exc.errno, exc.strerror, self.path) from None
-        self.crc[name] = checksum(block, self.crc[name])
+            except OSError as exc:
+                self._failed = exc if offset is None else OSError(exc.errno, exc.strerror, self.path)
+                raise self._failed from None
 
 
-def _stream_fields(path, targets, fields, x0, n, box_size, dtype, write_ids, row_start):
+def _lanes_for(field):
+    """How many blocks to compute side by side: one per FFT thread of the field (default: every core)."""
+    return max(1, field.workers or os.cpu_count() or 1)
+
+
+def _write_field(out, kinds, field, box_size, dtype, row_bytes):
+    """Turn ``field`` into particle blocks on a few threads side by side and write them.
+
+    Each thread ("lane") takes the next block, makes its planes real, fills its own
+    position and velocity buffers with the single-threaded kernels, checksums them and
+    writes them (:func:`icgen.particles.fill_block`). Every lane runs the whole chain
+    alone, so the cores are never shared between FFT threads, kernel threads and a
+    writer; the numbers do not depend on the lane count.
+
+    Returns
+    -------
+    crc : dict
+        kind -> list of (CRC-32 of the block alone, bytes), in block order.
+    stats : dict
+        kind -> plane statistics (planes, 3).
+    """
+    from . import particles  # the numerical core; imported here to keep this module light
+
+    n = field.n
+    ranges = particles.block_planes(field.planes, n, _BLOCK_ROWS)
+    lanes = min(_lanes_for(field), len(ranges))
+    crc = {kind: [None] * len(ranges) for kind, _ in kinds}
+    stats = {kind: [None] * len(ranges) for kind, _ in kinds}
+    queue = iter(range(len(ranges)))
+    take = threading.Lock()
+    rows_max = (ranges[0][1] - ranges[0][0]) * n * n
+
+    def lane():
+        bufs = {kind: np.empty((rows_max, 3), dtype=dtype) for kind, _ in kinds}
+        while True:
+            with take:
+                b = next(queue, None)
+            if b is None:
+                return
+            i0, i1 = ranges[b]
+            rows = (i1 - i0) * n * n
+            outs = {kind: buf[:rows] for kind, buf in bufs.items()}
+            st = particles.fill_block(field, kinds, i0, i1, box_size, outs)
+            for kind, _ in kinds:
+                out.write(kind, i0 * n * n, outs[kind])
+                crc[kind][b] = (checksum(outs[kind]), rows * row_bytes[kind])
+                stats[kind][b] = st[kind]
+
+    if lanes == 1:
+        lane()
+    else:
+        with ThreadPoolExecutor(max_workers=lanes, thread_name_prefix="icgen-lane") as pool:
+            running = [pool.submit(lane) for _ in range(lanes)]
+            errors = [f.exception() for f in running]
+        if out.error is not None:  # the first failed write, whichever lane met it first
+            raise out.error
+        for exc in errors:
+            if exc is not None:
+                raise exc
+    return crc, {kind: np.concatenate(planes) for kind, planes in stats.items()}
+
+
+def _stream_fields(path, targets, fields, n, box_size, dtype, write_ids, row_start):
     """Fill the allocated datasets of the closed file ``path`` from ``fields`` (this process's rows).
 
     Returns the per-dataset CRC-32 and the per-plane statistics (planes, 6).
     """
-    from . import particles  # the numerical core; imported here to keep this module light
-
-    stats = {}
+    stats, parts = {}, {}
     fields = iter(fields)
-    with _DirectWriter(path, targets) as out:
+    row_bytes = {name: width for name, (_, width) in targets.items()}
+    with _BlockWriter(path, targets) as out:
         try:
-            for kind, field, scale in fields:
-                blocks = []
-                for row0, block, st in particles.field_slabs(kind, field, scale, x0, box_size, dtype,
-                                                             rows_per_block=_BLOCK_ROWS, buffers=2):
-                    out.submit(kind, row0, block)
-                    out.drain(keep=1)  # the other buffer is free again before the generator refills it
-                    blocks.append(st)
-                stats[kind] = np.concatenate(blocks)
+            for kinds, field in fields:
+                crc, st = _write_field(out, kinds, field, box_size, dtype, row_bytes)
+                parts.update(crc)
+                stats.update(st)
                 del field  # let the generator free it before it computes the next field
         except Exception:
             # A failed write (a full disk, say): in a distributed run the other ranks are about to
             # transform the next field with this one, so take part in the remaining transforms
             # without writing, then fail (the ranks agree on failures afterwards).
-            for kind, field, scale in fields:
+            for kinds, field in fields:
                 del field
             raise
+        total = {}
+        for name, blocks in parts.items():  # the blocks' checksums combined in row order
+            total[name] = 0
+            for value, length in blocks:
+                total[name] = _crc32_combine(total[name], value, length)
         if write_ids:
             rows_total = stats["position"].shape[0] * n * n
+            total["id"] = 0
             for r0 in range(0, rows_total, _BLOCK_ROWS):
-                out.submit("id", r0, np.arange(row_start + r0, row_start + min(rows_total, r0 + _BLOCK_ROWS),
-                                               dtype=np.uint64))
-                out.drain(keep=1)
-        out.drain()
-        crc = dict(out.crc)
-    return crc, np.concatenate([stats["position"], stats["velocity"]], axis=1)
+                ids = np.arange(row_start + r0, row_start + min(rows_total, r0 + _BLOCK_ROWS), dtype=np.uint64)
+                out.write("id", r0, ids)
+                total["id"] = checksum(ids, total["id"])
+    return total, np.concatenate([stats["position"], stats["velocity"]], axis=1)
 
 
 def _check_stored_checksums(path, crc, label):
@@ -436,13 +491,13 @@ def _store_checksums(path, crc):
 def write_particles_streamed(path, growth, fields, n, box_size, order, mass, dtype, write_ids,
                              parameters_toml, cosmology, seed, fixed_amplitude=False, paired=False,
                              overwrite=False, extra_attrs=None, filters=None):
-    """Write the particles field by field and slab by slab (peak memory: three fields).
+    """Write the particles field by field and block by block (no real field is held whole).
 
     Parameters
     ----------
     path : str or Path
     growth : StartGrowth
-    fields : iterable of (kind, field, scale)
+    fields : iterable of (kinds, field)
         From :func:`icgen.lpt.output_fields` (the whole grid).
     n : int
     box_size : float
@@ -467,7 +522,7 @@ def write_particles_streamed(path, growth, fields, n, box_size, order, mass, dty
         with h5py.File(tmp, "w") as f:
             _write_attrs(f, attrs)
             targets = _create_particle_datasets(f.create_group("particles"), n**3, dtype, write_ids, filters)
-        crc, planes = _stream_fields(tmp, targets, fields, 0, n, box_size, dtype, write_ids, 0)
+        crc, planes = _stream_fields(tmp, targets, fields, n, box_size, dtype, write_ids, 0)
         _store_checksums(tmp, crc)
         _verify_or_raise(tmp, attrs)
     return particles.summarize(planes)
@@ -532,7 +587,7 @@ def write_particles_parts(path, growth, fields, layout, box_size, order, mass, d
             _write_attrs(f, {**attrs, "part_rank": rank, "part_count": size, "part_first_row": row_start,
                              "part_rows": rows})
             targets = _create_particle_datasets(f.create_group("particles"), rows, dtype, write_ids, filters)
-        crc, planes = _stream_fields(tmp, targets, fields, layout.x0, n, box_size, dtype, write_ids, row_start)
+        crc, planes = _stream_fields(tmp, targets, fields, n, box_size, dtype, write_ids, row_start)
         _store_checksums(tmp, crc)
         _check_stored_checksums(tmp, crc, mine)  # read back before anything is renamed
     except BaseException as exc:  # noqa: BLE001

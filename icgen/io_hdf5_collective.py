@@ -47,7 +47,7 @@ def write_particles_collective(path, growth, fields, layout, box_size, order, ma
     ----------
     path : str or Path
     growth : StartGrowth
-    fields : iterable of (kind, field, scale)
+    fields : iterable of (kinds, field)
         This rank's x-slab of each field, from :func:`icgen.lpt.output_fields`.
     layout : icgen.decomp.Layout
         The slab decomposition (its ``comm`` is the communicator of the file).
@@ -149,12 +149,13 @@ def _write_file(tmp, comm, attrs, fields, layout, box_size, dtype, write_ids):
         _write_attrs(f, attrs)
         grp = f.create_group("particles")
         _create_particle_datasets(grp, n**3, dtype, write_ids)
-        for kind, field, scale in fields:
-            blocks = []
-            for row0, block, st in particles.field_slabs(kind, field, scale, x0, box_size, dtype):
+        for kinds, field in fields:
+            blocks = {kind: [] for kind, _ in kinds}
+            for kind, row0, block, st in particles.particle_blocks(field, kinds, box_size, dtype):
                 write(kind, row0, block)
-                blocks.append(st)
-            stats[kind] = np.concatenate(blocks)
+                blocks[kind].append(st)
+            for kind, planes in blocks.items():
+                stats[kind] = np.concatenate(planes)
             del field  # let the generator free it before it computes the next field
         if write_ids:
             step = 1 << 22

@@ -32,12 +32,12 @@ Fourier transforms: :mod:`icgen._fft` (scipy.fft passes, ``norm="forward"`` conv
 from dataclasses import dataclass
 
 import numpy as np
-from . import _kernels
+from . import _fft, _kernels
 from .decomp import Layout
 from .errors import ParameterError
 from .field import DensityModes
 
-__all__ = ["Displacements", "displacements", "output_fields"]
+__all__ = ["Displacements", "displacements", "output_fields", "FieldSlabs"]
 
 
 @dataclass(frozen=True, eq=False)
@@ -218,10 +218,53 @@ def _second_order_source_k(modes, layout, scratch, workers, tick):
     return source_k
 
 
-def output_fields(modes, order, c_pos, c_vel, workers=None, progress=None):
-    """The displacement and velocity fields of the particles, one after the other (a generator).
+class FieldSlabs:
+    """A real three-component field on this rank's x-slab, made a few planes at a time.
 
-    Lower peak memory than :func:`displacements`: at most three real fields are alive.
+    The components are kept as complex x-slabs already transformed back along axes 0
+    and 1 (:meth:`icgen.decomp.Layout.inverse_xy`); :meth:`real` runs the last pass,
+    complex-to-real along axis 2, for the planes asked for. Those planes are
+    bit-identical to the same planes of :meth:`icgen.decomp.Layout.inverse` (each line
+    is transformed on its own), and the whole real field is never held: the consumer
+    turns each block of planes into particles while it is still in the cache.
+
+    Parameters
+    ----------
+    comps : list of three complex ndarrays, each (planes, n, n//2 + 1)
+    n : int
+        Grid points per side.
+    x0 : int
+        Global index of the first plane.
+    workers : int, optional
+        FFT threads.
+    """
+
+    def __init__(self, comps, n, x0, workers=None):
+        self.comps = comps
+        self.n = n
+        self.x0 = x0
+        self.workers = workers
+
+    @property
+    def planes(self):
+        """Number of x planes held."""
+        return self.comps[0].shape[0]
+
+    def real(self, i0, i1, workers=None):
+        """Components on the local planes i0 <= i < i1: three real arrays (i1 - i0, n, n).
+
+        ``workers`` FFT threads (default: the field's); the numbers do not depend on it.
+        """
+        w = self.workers if workers is None else workers
+        return tuple(_fft.inverse_pass_z(c[i0:i1], self.n, w) for c in self.comps)
+
+
+def output_fields(modes, order, c_pos, c_vel, workers=None, progress=None):
+    """The displacement and velocity fields of the particles, one group after the other (a generator).
+
+    Lower peak memory than :func:`displacements`: no real field is ever held whole; the
+    components are kept as half spectra transformed along two axes (:class:`FieldSlabs`),
+    and the consumer makes their real planes a block at a time.
 
     Parameters
     ----------
@@ -237,18 +280,23 @@ def output_fields(modes, order, c_pos, c_vel, workers=None, progress=None):
 
     Yields
     ------
-    kind : {"position", "velocity"}
-    field : tuple of three ndarrays, each (nx, n, n)
-        Components; multiply by ``scale`` to get the displacement (Mpc/h) or the velocity (km/s).
-    scale : float
+    kinds : tuple of (kind, scale)
+        kind in {"position", "velocity"}; multiply the field by ``scale`` to get the
+        displacement (Mpc/h) or the velocity (km/s).
+    field : FieldSlabs
+        The field of this group (one group with both kinds in first order, where the
+        velocity is a multiple of the displacement; one group per kind in second order).
 
     Notes
     -----
-    First order: psi_1 is computed once and yielded twice (scales D1 and a H f1 D1).
+    First order: psi_1 is computed once and serves both kinds (scales D1 and a H f1 D1).
     Second order: each field is one transform per component of
     i k / k^2 (c1 delta_k - c2 S_k), the sum of the two orders in Fourier space, so
     it equals c1 psi_1 + c2 psi_2 of :func:`displacements` to round-off (not bit for
     bit). The consumer must drop its reference to a field before asking for the next.
+    Memory at the peak, in half spectra (about 4 bytes per particle each in float32):
+    three in first order (the modes, reused for the last component, and two more);
+    in second order the source step of :func:`displacements` is the peak.
     """
     if not isinstance(modes, DensityModes):
         raise TypeError(f"modes must be DensityModes, got {type(modes).__name__}")
@@ -258,38 +306,41 @@ def output_fields(modes, order, c_pos, c_vel, workers=None, progress=None):
     layout = modes.layout if modes.layout is not None else Layout(n)
     tick = progress or (lambda stage: None)
     dk = modes.delta_k
-    scratch = _Scratch(dk, layout)
     if order == 1:
-        comps = []  # three separate arrays: no copy of each transform's output
+        comps = []
         for d in range(3):
-            if d == 2:  # the last transform reuses the modes' memory, handed over (freed after its transpose)
-                scratch.release()
+            if d == 2:  # the last component reuses the modes' memory, handed over (freed after its transpose)
                 dk.flags.writeable = True
                 _kernels._fourier_operator(dk, 1.0, dk, 0.0, n, 0, iy0, kf, d, -1, dk)
                 hand = [dk]
-                del dk, modes  # free the modes before the particles are written
-                comps.append(layout.inverse(hand, workers))
+                del dk, modes  # nothing else holds the modes now
             else:
-                comps.append(scratch.inverse(layout, workers, dk, 1.0, dk, 0.0, n, iy0, kf, d, -1))
+                buf = np.empty_like(dk)
+                _kernels._fourier_operator(dk, 1.0, dk, 0.0, n, 0, iy0, kf, d, -1, buf)
+                hand = [buf]
+                del buf
+            comps.append(layout.inverse_xy(hand, workers))
             tick(f"psi_1[{d}]")
-        psi = tuple(comps)
-        del comps
-        yield "position", psi, c_pos[0]
-        yield "velocity", psi, c_vel[0]
+        yield (("position", c_pos[0]), ("velocity", c_vel[0])), FieldSlabs(comps, n, layout.x0, workers)
         return
+    scratch = _Scratch(dk, layout)
     source_k = _second_order_source_k(modes, layout, scratch, workers, tick)
+    scratch.release()
+    del scratch
     for kind, (c1, c2) in (("position", c_pos), ("velocity", c_vel)):
-        field = []  # three separate arrays: no copy of each transform's output
+        comps = []
         for d in range(3):
             if kind == "velocity" and d == 2:  # the last transform reuses the modes' memory
-                scratch.release()
                 dk.flags.writeable = True
                 _kernels._fourier_operator(dk, c1, source_k, -c2, n, 0, iy0, kf, d, -1, dk)
                 hand = [dk]
                 del source_k, modes, dk
-                field.append(layout.inverse(hand, workers))
             else:
-                field.append(scratch.inverse(layout, workers, dk, c1, source_k, -c2, n, iy0, kf, d, -1))
+                buf = np.empty_like(dk)
+                _kernels._fourier_operator(dk, c1, source_k, -c2, n, 0, iy0, kf, d, -1, buf)
+                hand = [buf]
+                del buf
+            comps.append(layout.inverse_xy(hand, workers))
             tick(f"{kind}[{d}]")
-        yield kind, tuple(field), 1.0
-        del field
+        yield ((kind, 1.0),), FieldSlabs(comps, n, layout.x0, workers)
+        del comps

@@ -20,7 +20,7 @@ from .errors import ParameterError
 from .lpt import Displacements
 from .units import RHO_CRIT_100
 
-__all__ = ["ParticleSet", "at", "field_slabs", "coefficients", "summarize", "particle_mass",
+__all__ = ["ParticleSet", "at", "field_slabs", "particle_blocks", "block_planes", "fill_block", "coefficients", "summarize", "particle_mass",
            "StartGrowth"]
 
 
@@ -180,6 +180,101 @@ def field_slabs(kind, field, scale, x0, box_size, dtype=np.float32, planes_per_s
         else:
             _kernels._velocity_slab(fx, fy, fz, scale, i0, i1, buf[:rows], stats)
         yield i0 * n * n, buf[:rows], stats
+
+
+def block_planes(planes, n, rows_per_block):
+    """Plane ranges [(i0, i1), ...] of the blocks of about ``rows_per_block`` rows (whole planes)."""
+    per = max(1, rows_per_block // (n * n))
+    return [(i0, min(planes, i0 + per)) for i0 in range(0, planes, per)]
+
+
+def fill_block(field, kinds, i0, i1, box_size, outs):
+    """Positions and/or velocities of the local planes i0 <= i < i1, on the calling thread alone.
+
+    For callers that run several blocks side by side, one per thread: the planes are made
+    real with one FFT thread and turned into particles by single-threaded kernels, which
+    give the same numbers as the multi-threaded ones (:func:`particle_blocks`).
+
+    Parameters
+    ----------
+    field : icgen.lpt.FieldSlabs
+    kinds : sequence of (kind, scale)
+        As in :func:`particle_blocks`.
+    i0, i1 : int
+        Local planes of the block.
+    box_size : float
+        L in Mpc/h.
+    outs : dict
+        kind -> C-contiguous array ((i1 - i0) n^2, 3) of float32 or float64 to fill.
+
+    Returns
+    -------
+    dict
+        kind -> plane statistics (i1 - i0, 3): sum, sum of squares and max |.| of the
+        displacement or velocity components.
+    """
+    fx, fy, fz = field.real(i0, i1, workers=1)
+    stats = {}
+    for kind, scale in kinds:
+        st = np.empty((i1 - i0, 3))
+        if kind == "position":
+            _kernels._position_block(fx, fy, fz, scale, 0, i1 - i0, field.x0 + i0, box_size, outs[kind], st)
+        else:
+            _kernels._velocity_block(fx, fy, fz, scale, 0, i1 - i0, outs[kind], st)
+        stats[kind] = st
+    return stats
+
+
+def particle_blocks(field, kinds, box_size, dtype=np.float32, rows_per_block=1 << 19, buffers=1):
+    """Positions and/or velocities from a :class:`icgen.lpt.FieldSlabs`, block by block (a generator).
+
+    Each block of x planes of the field is made real once (:meth:`~icgen.lpt.FieldSlabs.real`)
+    and turned into every kind asked for while it is still in the cache.
+
+    Parameters
+    ----------
+    field : icgen.lpt.FieldSlabs
+        Displacement or velocity field over its scales (from :func:`icgen.lpt.output_fields`).
+    kinds : sequence of (kind, scale)
+        kind in {"position", "velocity"}; positions are q + scale field mod L (Mpc/h),
+        velocities scale field (km/s).
+    box_size : float
+        L in Mpc/h.
+    dtype : {numpy.float32, numpy.float64}
+    rows_per_block : int
+        Target rows per block (whole planes, at least one).
+    buffers : int
+        Output buffers per kind, used in turn: a block stays valid until ``buffers - 1``
+        more blocks of its kind have been yielded (2 lets a writer thread drain one
+        while the next is computed).
+
+    Yields
+    ------
+    kind : str
+    row0 : int
+        First row of the block, counted from the field's first plane.
+    block : ndarray, shape (rows, 3)
+        Positions in [0, L) (Mpc/h) or velocities (km/s); the buffers are reused in turn.
+    plane_stats : ndarray, shape (planes, 3)
+        Sum, sum of squares and max |.| of the displacement or velocity components.
+    """
+    dtype = _check_dtype(dtype)
+    planes, n = field.planes, field.n
+    ranges = block_planes(planes, n, rows_per_block)
+    bufs = {kind: [np.empty(((ranges[0][1] - ranges[0][0]) * n * n, 3), dtype=dtype)
+                   for _ in range(max(1, buffers))] for kind, _ in kinds}
+    for b, (i0, i1) in enumerate(ranges):
+        rows = (i1 - i0) * n * n
+        fx, fy, fz = field.real(i0, i1)
+        for kind, scale in kinds:
+            block = bufs[kind][b % len(bufs[kind])][:rows]
+            stats = np.empty((i1 - i0, 3))
+            if kind == "position":
+                _kernels._position_slab(fx, fy, fz, scale, 0, i1 - i0, field.x0 + i0, box_size, block, stats)
+            else:
+                _kernels._velocity_slab(fx, fy, fz, scale, 0, i1 - i0, block, stats)
+            yield kind, i0 * n * n, block, stats
+        del fx, fy, fz
 
 
 def at(growth, disp, omega_m, dtype=np.float32, write_ids=True):

@@ -105,7 +105,7 @@ def particle_fields(pk, bg, setup, a_start, workers=None, progress=None, layout=
     Returns
     -------
     growth : StartGrowth
-    fields : generator of (kind, field, scale)
+    fields : generator of (kinds, field)
         See :func:`icgen.lpt.output_fields`; this rank's x-slab in a distributed run
         (bit-identical to the serial fields for any number of ranks).
     """

@@ -179,7 +179,7 @@ def test_full_disk_during_ics_leaves_nothing(tmp_path, full_disk, limit):
 @pytest.mark.parametrize("limit", [0, 5000, N16_DATA // 2])
 def test_full_disk_in_the_writer_thread_leaves_nothing(tmp_path, monkeypatch, limit):
     """The particle data go to their allocated offsets with os.pwrite from a worker thread
-    (io_hdf5._DirectWriter); a disk that fills up there must end the run as any other write
+    (io_hdf5._BlockWriter, from the lanes of io_hdf5._write_field); a disk that fills up there must end the run as any other write
     failure does: exit 1, one line naming the file and ENOSPC, nothing left behind."""
     real_pwrite, state = os.pwrite, {"written": 0, "refused": 0}
 
