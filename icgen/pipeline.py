@@ -102,6 +102,10 @@ def displacement_fields(pk, bg, setup, workers=None, progress=None, layout=None)
 def particle_fields(pk, bg, setup, a_start, workers=None, progress=None, layout=None):
     """Linear modes -> the displacement and velocity fields at a_start, one after the other.
 
+    Nothing heavy happens here: the modes are drawn when the consumer starts on the
+    fields, so it can first create its output (and let the system prepare it) while
+    they are computed.
+
     Returns
     -------
     growth : StartGrowth
@@ -109,14 +113,20 @@ def particle_fields(pk, bg, setup, a_start, workers=None, progress=None, layout=
         See :func:`icgen.lpt.output_fields`; this rank's x-slab in a distributed run
         (bit-identical to the serial fields for any number of ranks).
     """
-    modes = field.linear_density_modes(lambda k: pk.P(k, 0.0), setup.seed, setup.n, setup.box_size,
-                                       setup.fixed_amplitude, setup.paired, dtype=setup.dtype,
-                                       layout=layout)
-    if progress:
-        progress("modes")
     growth = particles.StartGrowth.from_background(bg, a_start)
     c_pos, c_vel = particles.coefficients(growth, setup.lpt_order)
-    return growth, lpt.output_fields(modes, setup.lpt_order, c_pos, c_vel, workers=workers, progress=progress)
+
+    def fields():
+        modes = field.linear_density_modes(lambda k: pk.P(k, 0.0), setup.seed, setup.n, setup.box_size,
+                                           setup.fixed_amplitude, setup.paired, dtype=setup.dtype,
+                                           layout=layout)
+        if progress:
+            progress("modes")
+        stream = lpt.output_fields(modes, setup.lpt_order, c_pos, c_vel, workers=workers, progress=progress)
+        del modes  # the stream frees them as it goes
+        yield from stream
+
+    return growth, fields()
 
 
 def initial_conditions(pk, bg, setup, a_start, workers=None, progress=None):

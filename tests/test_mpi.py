@@ -260,6 +260,31 @@ _PWRITE_FAILS_ON_RANK_1 = textwrap.dedent("""
 """)
 
 
+_PART_FILE_CANNOT_BE_MADE_ON_RANK_1 = textwrap.dedent("""
+    import errno, os, sys
+    import h5py
+    real = h5py.File
+    def failing(name, mode="r", *args, **kwargs):
+        if os.environ.get("PMI_RANK") == "1" and mode == "w":
+            raise OSError(errno.EACCES, "Permission denied")
+        return real(name, mode, *args, **kwargs)
+    h5py.File = failing
+    from icgen.cli import main
+    sys.exit(main(sys.argv[1:]))
+""")
+
+
+@needs_mpi
+def test_part_file_that_cannot_be_made_on_one_rank_ends_every_rank_cleanly(tmp_path):
+    # The fields are computed as the part files are written; rank 1 cannot even make its part
+    # file, so it never starts on its fields. It must still take part in their transforms
+    # (io_hdf5.write_particles_parts drains them), or the other ranks wait in a transpose
+    # for ever. Every rank ends with the I/O-error status 1, one message, nothing left.
+    line = _failing_run(tmp_path, _PART_FILE_CANNOT_BE_MADE_ON_RANK_1, "w.h5", status=1)
+    assert "Permission denied" in line and "no partial output" in line
+    assert _leftovers(tmp_path, "w") == []
+
+
 @needs_mpi
 def test_part_file_write_error_on_one_rank_ends_every_rank_cleanly(tmp_path):
     # Second order: after the positions are written come the velocity transforms, which need

@@ -34,3 +34,12 @@ def test_parse_size():
     for bad in ("", "-1G", "lots", "3X"):
         with pytest.raises(InputError, match="--max-memory"):
             preflight.parse_size(bad)
+
+
+def test_lanes_are_capped_and_their_buffers_counted():
+    # One lane per FFT thread, at most MAX_LANES; each lane holds 9 words per block row.
+    assert preflight.lanes(1) == 1
+    assert preflight.lanes(10**6) == preflight.MAX_LANES
+    assert preflight.lane_bytes("float64") == 2 * preflight.lane_bytes("float32") == 2 * 36 * preflight.BLOCK_ROWS
+    extra = preflight.peak_memory(64, 1, "float32", workers=4) - preflight.peak_memory(64, 1, "float32", workers=1)
+    assert extra == 3 * preflight.lane_bytes("float32")

@@ -93,7 +93,7 @@ def generate(params, out, overwrite=False, workers=None, quiet=False, max_memory
         bg, pk, setup, a_start, advice = prepare(params, quiet=comm is not None and comm.Get_rank() != 0)
         layout = decomp.Layout(setup.n, comm)
         preflight.check(setup.n, setup.lpt_order, setup.dtype.name, setup.write_ids, out, layout.size,
-                        None if max_memory is None else preflight.parse_size(max_memory), here)
+                        None if max_memory is None else preflight.parse_size(max_memory), here, workers)
     except BaseException as exc:  # noqa: BLE001 - every rank must learn of it (parallel.agree)
         if comm is None:
             raise
