@@ -34,7 +34,6 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from . import _kernels
 from .errors import ParameterError
 
 __all__ = ["white_noise", "amplitude_table", "DensityModes", "linear_density_modes",
@@ -103,6 +102,8 @@ def white_noise(seed, n, fixed_amplitude=False, paired=False, ix0=0, ix1=None, d
     k0, k1 = _key(seed)
     out = np.empty((ix1 - ix0, iy1 - iy0, n // 2 + 1), dtype=_complex_dtype(dtype))
     amp = np.ones(3 * (n // 2) ** 2 + 1) if amp_of_m2 is None else amp_of_m2
+    from . import _kernels  # numba loads on first use (see icgen.particles)
+
     _kernels._white_noise_slab(k0, k1, n, ix0, iy0, bool(fixed_amplitude), -1.0 if paired else 1.0, amp, out)
     return out
 

@@ -524,9 +524,9 @@ def _stream_fields(path, targets, fields, n, box_size, dtype, write_ids, row_sta
     Returns the per-dataset CRC-32 and the per-plane statistics (planes, 6).
     """
     stats, parts = {}, {}
-    fields = iter(fields)
     row_bytes = {name: width for name, (_, width) in targets.items()}
     with _BlockWriter(path, targets) as out:
+        fields = iter(fields() if callable(fields) else fields)  # (see write_particles_streamed)
         try:
             for kinds, field in fields:
                 crc, st = _write_field(out, kinds, field, box_size, dtype, row_bytes)
@@ -579,8 +579,10 @@ def write_particles_streamed(path, growth, fields, n, box_size, order, mass, dty
     ----------
     path : str or Path
     growth : StartGrowth
-    fields : iterable of (kinds, field)
-        From :func:`icgen.lpt.output_fields` (the whole grid).
+    fields : iterable of (kinds, field), or a function returning one
+        From :func:`icgen.lpt.output_fields` (the whole grid). A function is called once
+        the file exists and its pages are being prepared (:class:`_PagePrefetch`), so that
+        what it imports and computes overlaps that preparation.
     n : int
     box_size : float
     order : int

@@ -15,10 +15,12 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from . import _kernels
 from .errors import ParameterError
-from .lpt import Displacements
 from .units import RHO_CRIT_100
+
+# The compiled kernels (icgen._kernels, numba) and icgen.lpt (scipy.fft) are imported by the
+# functions that use them: StartGrowth and the mass are needed to create an output file,
+# which ``icgen ics`` does before numba loads, so the file's pages are prepared meanwhile.
 
 __all__ = ["ParticleSet", "at", "field_slabs", "particle_blocks", "block_planes", "fill_block", "coefficients", "summarize", "particle_mass",
            "StartGrowth"]
@@ -165,6 +167,8 @@ def field_slabs(kind, field, scale, x0, box_size, dtype=np.float32, planes_per_s
     plane_stats : ndarray, shape (planes, 3)
         Sum, sum of squares and max |.| of the displacement or velocity components.
     """
+    from . import _kernels
+
     dtype = _check_dtype(dtype)
     fx, fy, fz = field
     planes, n = fx.shape[0], fx.shape[2]
@@ -213,6 +217,8 @@ def fill_block(field, kinds, i0, i1, box_size, outs):
         kind -> plane statistics (i1 - i0, 3): sum, sum of squares and max |.| of the
         displacement or velocity components.
     """
+    from . import _kernels
+
     fx, fy, fz = field.real(i0, i1, workers=1)
     stats = {}
     for kind, scale in kinds:
@@ -258,6 +264,8 @@ def particle_blocks(field, kinds, box_size, dtype=np.float32, rows_per_block=1 <
     plane_stats : ndarray, shape (planes, 3)
         Sum, sum of squares and max |.| of the displacement or velocity components.
     """
+    from . import _kernels
+
     dtype = _check_dtype(dtype)
     planes, n = field.planes, field.n
     ranges = block_planes(planes, n, rows_per_block)
@@ -299,6 +307,8 @@ def at(growth, disp, omega_m, dtype=np.float32, write_ids=True):
     -------
     ParticleSet
     """
+    from .lpt import Displacements
+
     if not isinstance(disp, Displacements):
         raise TypeError(f"disp must be Displacements, got {type(disp).__name__}")
     dtype = _check_dtype(dtype)

@@ -8,8 +8,11 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from . import field, lpt, particles, start
+from . import field, particles, start
 from .errors import ParameterError
+
+# icgen.lpt (scipy.fft, the compiled kernels) is imported by the functions that transform:
+# the set-up functions here stay light (see icgen.particles).
 
 __all__ = ["GridSetup", "grid_setup", "start_scale_factor", "displacement_fields", "particle_fields",
            "initial_conditions",
@@ -90,6 +93,8 @@ def displacement_fields(pk, bg, setup, workers=None, progress=None, layout=None)
     Displacements
         This rank's x-slab of the fields (the whole grid in a serial run).
     """
+    from . import lpt
+
     tick = progress or (lambda stage: None)
     modes = field.linear_density_modes(lambda k: pk.P(k, 0.0), setup.seed, setup.n, setup.box_size,
                                        setup.fixed_amplitude, setup.paired, dtype=setup.dtype,
@@ -117,6 +122,8 @@ def particle_fields(pk, bg, setup, a_start, workers=None, progress=None, layout=
     c_pos, c_vel = particles.coefficients(growth, setup.lpt_order)
 
     def fields():
+        from . import lpt
+
         modes = field.linear_density_modes(lambda k: pk.P(k, 0.0), setup.seed, setup.n, setup.box_size,
                                            setup.fixed_amplitude, setup.paired, dtype=setup.dtype,
                                            layout=layout)

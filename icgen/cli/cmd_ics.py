@@ -5,7 +5,7 @@ import os
 import time
 import warnings
 
-from .. import background, decomp, io_hdf5, io_hdf5_collective, io_output, parallel, particles, pipeline, preflight
+from .. import background, io_hdf5, io_output, parallel, particles, pipeline, preflight
 from ..errors import InputError
 from .common import add_params_arguments, load_params, progress_bar, provenance, warn_line
 
@@ -60,6 +60,8 @@ def check_single_file(filters):
     if not parallel.launched_by_mpi():
         raise InputError("--single-file applies to MPI runs (mpiexec -n R icgen ics ...); "
                          "a run without MPI always writes one file")
+    from .. import io_hdf5_collective
+
     if not io_hdf5_collective.available():
         raise InputError("--single-file needs h5py built with MPI (parallel HDF5), and this h5py is a serial "
                          "build; see the README section on MPI, or leave the option out to write part files")
@@ -83,16 +85,16 @@ def generate(params, out, overwrite=False, workers=None, quiet=False, max_memory
     if single_file:
         check_single_file(filters)
     comm = parallel.world()
+    ranks, rank = (1, 0) if comm is None else (comm.Get_size(), comm.Get_rank())
     t0 = time.perf_counter()
     # Ranks sharing this node's memory (a collective call: every rank makes it, before anything can fail).
     here = 1 if comm is None else comm.Split_type(parallel.shared_memory_type()).Get_size()
     error = None
     try:
-        if comm is None or comm.Get_rank() == 0:
+        if rank == 0:
             io_output.check_output_path(out, overwrite)
-        bg, pk, setup, a_start, advice = prepare(params, quiet=comm is not None and comm.Get_rank() != 0)
-        layout = decomp.Layout(setup.n, comm)
-        preflight.check(setup.n, setup.lpt_order, setup.dtype.name, setup.write_ids, out, layout.size,
+        bg, pk, setup, a_start, advice = prepare(params, quiet=rank != 0)
+        preflight.check(setup.n, setup.lpt_order, setup.dtype.name, setup.write_ids, out, ranks,
                         None if max_memory is None else preflight.parse_size(max_memory), here, workers)
     except BaseException as exc:  # noqa: BLE001 - every rank must learn of it (parallel.agree)
         if comm is None:
@@ -101,10 +103,19 @@ def generate(params, out, overwrite=False, workers=None, quiet=False, max_memory
     parallel.agree(comm, error)
     cosmo = params.cosmology
     steps = pipeline.N_PROGRESS_STEPS[setup.lpt_order] + 1
-    with progress_bar(steps, f"ics {setup.n}^3" + (f" on {layout.size} ranks" if layout.distributed else ""),
-                      disable=quiet or layout.rank != 0) as bar:
-        growth, fields = pipeline.particle_fields(pk, bg, setup, a_start, workers,
-                                                  progress=lambda stage: bar.update(1), layout=layout)
+    with progress_bar(steps, f"ics {setup.n}^3" + (f" on {ranks} ranks" if ranks > 1 else ""),
+                      disable=quiet or rank != 0) as bar:
+
+        def fields(layout=None):
+            # scipy.fft and the compiled kernels load here: in a serial run, once the output file
+            # exists and its pages are being prepared (io_hdf5._PagePrefetch) on the idle core.
+            from .. import decomp
+
+            layout = layout or decomp.Layout(setup.n, comm)
+            return pipeline.particle_fields(pk, bg, setup, a_start, workers, progress=lambda stage: bar.update(1),
+                                            layout=layout)[1]
+
+        growth = particles.StartGrowth.from_background(bg, a_start)
         mass = particles.particle_mass(cosmo.omega_m, setup.box_size, setup.n)
         extra = {k: v for k, v in provenance(params).items() if k.startswith("input_table")}
         if advice is not None:
@@ -114,9 +125,12 @@ def generate(params, out, overwrite=False, workers=None, quiet=False, max_memory
         common = dict(parameters_toml=params.to_toml(), cosmology=cosmo, seed=setup.seed,
                       fixed_amplitude=setup.fixed_amplitude, paired=setup.paired, overwrite=overwrite,
                       extra_attrs=extra, filters=filters)
-        if layout.distributed:
+        if ranks > 1:
+            from .. import decomp, io_hdf5_collective
+
+            layout = decomp.Layout(setup.n, comm)
             write = io_hdf5_collective.write_particles_collective if single_file else io_hdf5.write_particles_parts
-            stats = write(out, growth, fields, layout, setup.box_size, setup.lpt_order, mass, setup.dtype,
+            stats = write(out, growth, fields(layout), layout, setup.box_size, setup.lpt_order, mass, setup.dtype,
                           setup.write_ids, **common)
         else:
             stats = io_hdf5.write_particles_streamed(out, growth, fields, setup.n, setup.box_size,
@@ -124,7 +138,7 @@ def generate(params, out, overwrite=False, workers=None, quiet=False, max_memory
                                                      **common)
         bar.update(1)
     info = {"out": str(out), "bg": bg, "pk": pk, "n": setup.n, "box_size": setup.box_size,
-            "order": setup.lpt_order, "mass": mass, "growth": growth, "ranks": layout.size,
+            "order": setup.lpt_order, "mass": mass, "growth": growth, "ranks": ranks,
             "single_file": single_file,
             "disp": stats["displacement"] if stats else None, "vel": stats["velocity"] if stats else None,
             "seconds": time.perf_counter() - t0}
