@@ -80,6 +80,12 @@ def main():
     a = p.parse_args()
     if not Path(a.floor).exists():
         raise SystemExit(f"floor pipeline not found at {a.floor}; pass --floor")
+    # Measure icgen as installed: pip byte-compiles a package on install, but an editable
+    # install under PYTHONDONTWRITEBYTECODE=1 would compile every module on every run.
+    import compileall
+
+    import icgen
+    compileall.compile_dir(Path(icgen.__file__).parent, quiet=1)
     with tempfile.TemporaryDirectory() as work:
         t_o, t_b, m_o, m_b = compare(a.floor, a.n, a.order, a.precision, a.repeats, work)
         print(f"N = {a.n}^3, order {a.order}, {a.precision}, median of {a.repeats} alternating runs")
