@@ -87,3 +87,26 @@ def test_lanes_follow_the_fields_workers():
     assert io_hdf5._lanes_for(fs) == 3
     fs.workers = None
     assert io_hdf5._lanes_for(fs) >= 1
+
+
+def test_page_prefetch_leaves_the_contents_alone(tmp_path):
+    # MADV_POPULATE_WRITE only creates pages; bytes already in the file (or written meanwhile)
+    # must read back unchanged, and the prefetch must close its descriptor when it stops.
+    import os
+
+    path = tmp_path / "f.bin"
+    data = np.random.default_rng(1).integers(0, 256, size=3 * io_hdf5._PagePrefetch.WINDOW + 12345, dtype=np.uint8)
+    path.write_bytes(data.tobytes())
+    fd = os.open(path, os.O_RDWR)
+    try:
+        before = len(os.listdir("/proc/self/fd")) if os.path.isdir("/proc/self/fd") else None
+        pf = io_hdf5._PagePrefetch(os.dup(fd), 5000, data.size - 5000)
+        os.pwrite(fd, b"\x07" * 100, 7000)  # a write beside the prefetch
+        pf.stop()
+        if before is not None:
+            assert len(os.listdir("/proc/self/fd")) == before   # its duplicate is closed again
+    finally:
+        os.close(fd)
+    want = data.copy()
+    want[7000:7100] = 7
+    np.testing.assert_array_equal(np.frombuffer(path.read_bytes(), dtype=np.uint8), want)
