@@ -24,3 +24,14 @@ def test_run_path_does_not_import_heavy_scipy(module):
             f"print(sorted(m for m in sys.modules if m.startswith({HEAVY!r})))")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
     assert out.stdout.strip() == "[]", out.stdout
+
+
+@pytest.mark.parametrize("module", ["icgen.cli.cmd_ics", "icgen.pipeline", "icgen.particles", "icgen.field",
+                                    "icgen.io_hdf5", "icgen.start"])
+def test_set_up_path_loads_neither_numba_nor_scipy_fft(module):
+    # icgen ics creates its output file before numba and scipy.fft load, so the file's pages are
+    # prepared on the idle core meanwhile (io_hdf5._PagePrefetch; DEVELOPERS.md, start-up order).
+    code = (f"import sys, {module}; "
+            f"print(sorted(m for m in sys.modules if m in ('numba', 'scipy.fft')))")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert out.stdout.strip() == "[]", out.stdout
