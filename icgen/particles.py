@@ -22,7 +22,7 @@ from .units import RHO_CRIT_100
 # functions that use them: StartGrowth and the mass are needed to create an output file,
 # which ``icgen ics`` does before numba loads, so the file's pages are prepared meanwhile.
 
-__all__ = ["ParticleSet", "at", "field_slabs", "particle_blocks", "block_planes", "fill_block", "coefficients", "summarize", "particle_mass",
+__all__ = ["ParticleSet", "at", "particle_blocks", "block_planes", "fill_block", "coefficients", "summarize", "particle_mass",
            "StartGrowth"]
 
 
@@ -101,7 +101,7 @@ def _check_dtype(dtype):
 
 
 def summarize(plane_stats):
-    """Displacement and velocity statistics from per-plane sums (see :func:`field_slabs`).
+    """Displacement and velocity statistics from per-plane sums (see :func:`particle_blocks`).
 
     Parameters
     ----------
@@ -135,55 +135,21 @@ def coefficients(growth, order):
     return (growth.D1, d2), (a_h * growth.f1 * growth.D1, a_h * growth.f2 * d2)
 
 
-def field_slabs(kind, field, scale, x0, box_size, dtype=np.float32, planes_per_slab=None,
-                rows_per_block=1 << 21, buffers=1):
-    """Positions or velocities from one field, slab by slab (a generator), for streaming output.
+class _InMemory:
+    """Real field components already in memory, behind the interface of :class:`icgen.lpt.FieldSlabs`."""
 
-    Parameters
-    ----------
-    kind : {"position", "velocity"}
-    field : sequence of three ndarrays, each (planes, n, n)
-        Displacement or velocity components over ``scale`` (see :func:`icgen.lpt.output_fields`).
-    scale : float
-    x0 : int
-        Global index of the field's first plane.
-    box_size : float
-        L in Mpc/h.
-    dtype : {numpy.float32, numpy.float64}
-    planes_per_slab : int, optional
-        Planes per block (default: as many as fit in ``rows_per_block`` rows, at least one).
-    rows_per_block : int
-        Target rows per block.
-    buffers : int
-        Output buffers used in turn: a block stays valid until ``buffers - 1`` more have
-        been yielded (2 lets a writer thread drain one while the next is computed).
+    def __init__(self, comps, x0=0):
+        self.comps = comps
+        self.n = comps[0].shape[2]
+        self.x0 = x0
+        self.workers = None
 
-    Yields
-    ------
-    row0 : int
-        First row of the slab, counted from the field's first plane.
-    block : ndarray, shape (rows, 3)
-        Positions in [0, L) (Mpc/h) or velocities (km/s); the buffers are reused in turn.
-    plane_stats : ndarray, shape (planes, 3)
-        Sum, sum of squares and max |.| of the displacement or velocity components.
-    """
-    from . import _kernels
+    @property
+    def planes(self):
+        return self.comps[0].shape[0]
 
-    dtype = _check_dtype(dtype)
-    fx, fy, fz = field
-    planes, n = fx.shape[0], fx.shape[2]
-    per = planes_per_slab or max(1, rows_per_block // (n * n))
-    bufs = [np.empty((min(per, planes) * n * n, 3), dtype=dtype) for _ in range(max(1, buffers))]
-    for b, i0 in enumerate(range(0, planes, per)):
-        buf = bufs[b % len(bufs)]
-        i1 = min(planes, i0 + per)
-        rows = (i1 - i0) * n * n
-        stats = np.empty((i1 - i0, 3))
-        if kind == "position":
-            _kernels._position_slab(fx, fy, fz, scale, i0, i1, x0, box_size, buf[:rows], stats)
-        else:
-            _kernels._velocity_slab(fx, fy, fz, scale, i0, i1, buf[:rows], stats)
-        yield i0 * n * n, buf[:rows], stats
+    def real(self, i0, i1, workers=None):
+        return tuple(c[i0:i1] for c in self.comps)
 
 
 def block_planes(planes, n, rows_per_block):
@@ -286,7 +252,7 @@ def particle_blocks(field, kinds, box_size, dtype=np.float32, rows_per_block=1 <
 
 
 def at(growth, disp, omega_m, dtype=np.float32, write_ids=True):
-    """Place the particles at the start (all in memory; see :func:`field_slabs` for streaming).
+    """Place the particles at the start (all in memory; see :func:`particle_blocks` for streaming).
 
     Parameters
     ----------
@@ -314,7 +280,7 @@ def at(growth, disp, omega_m, dtype=np.float32, write_ids=True):
     dtype = _check_dtype(dtype)
     n, box = disp.n, disp.box_size
     if disp.planes != n:
-        raise ParameterError("particles.at needs the whole grid; stream a rank's slab with particles.field_slabs")
+        raise ParameterError("particles.at needs the whole grid; stream a rank's slab with particles.particle_blocks")
     out = {"position": np.empty((n**3, 3), dtype=dtype), "velocity": np.empty((n**3, 3), dtype=dtype)}
     stats = {}
     for kind, (c1, c2) in zip(("position", "velocity"), coefficients(growth, disp.order)):
@@ -323,7 +289,7 @@ def at(growth, disp, omega_m, dtype=np.float32, write_ids=True):
         else:  # second order: the two orders summed in real space, in float64
             field, scale = tuple(c1 * disp.psi_1.astype(np.float64) + c2 * disp.psi_2), 1.0
         planes = []
-        for row0, block, st in field_slabs(kind, field, scale, 0, box, dtype, planes_per_slab=n):
+        for _, row0, block, st in particle_blocks(_InMemory(field), ((kind, scale),), box, dtype, rows_per_block=n**3):
             out[kind][row0:row0 + block.shape[0]] = block
             planes.append(st)
         stats[kind] = np.concatenate(planes)
