@@ -259,6 +259,16 @@ class FieldSlabs:
         return tuple(_fft.inverse_pass_z(c[i0:i1], self.n, w) for c in self.comps)
 
 
+def _component_xy(layout, workers, src1, a1, src2, a2, n, iy0, kf, d):
+    """Component d of i k / k^2 (a1 src1 + a2 src2), built in a new buffer and transformed
+    along axes 0 and 1 (:meth:`icgen.decomp.Layout.inverse_xy`, which may free the buffer)."""
+    buf = np.empty_like(src1)
+    _kernels._fourier_operator(src1, a1, src2, a2, n, 0, iy0, kf, d, -1, buf)
+    hand = [buf]
+    del buf
+    return layout.inverse_xy(hand, workers)
+
+
 def output_fields(modes, order, c_pos, c_vel, workers=None, progress=None):
     """The displacement and velocity fields of the particles, one group after the other (a generator).
 
@@ -314,12 +324,9 @@ def output_fields(modes, order, c_pos, c_vel, workers=None, progress=None):
                 _kernels._fourier_operator(dk, 1.0, dk, 0.0, n, 0, iy0, kf, d, -1, dk)
                 hand = [dk]
                 del dk, modes  # nothing else holds the modes now
+                comps.append(layout.inverse_xy(hand, workers))
             else:
-                buf = np.empty_like(dk)
-                _kernels._fourier_operator(dk, 1.0, dk, 0.0, n, 0, iy0, kf, d, -1, buf)
-                hand = [buf]
-                del buf
-            comps.append(layout.inverse_xy(hand, workers))
+                comps.append(_component_xy(layout, workers, dk, 1.0, dk, 0.0, n, iy0, kf, d))
             tick(f"psi_1[{d}]")
         yield (("position", c_pos[0]), ("velocity", c_vel[0])), FieldSlabs(comps, n, layout.x0, workers)
         return
@@ -335,12 +342,9 @@ def output_fields(modes, order, c_pos, c_vel, workers=None, progress=None):
                 _kernels._fourier_operator(dk, c1, source_k, -c2, n, 0, iy0, kf, d, -1, dk)
                 hand = [dk]
                 del source_k, modes, dk
+                comps.append(layout.inverse_xy(hand, workers))
             else:
-                buf = np.empty_like(dk)
-                _kernels._fourier_operator(dk, c1, source_k, -c2, n, 0, iy0, kf, d, -1, buf)
-                hand = [buf]
-                del buf
-            comps.append(layout.inverse_xy(hand, workers))
+                comps.append(_component_xy(layout, workers, dk, c1, source_k, -c2, n, iy0, kf, d))
             tick(f"{kind}[{d}]")
         yield ((kind, 1.0),), FieldSlabs(comps, n, layout.x0, workers)
         del comps
